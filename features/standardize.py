@@ -1,0 +1,100 @@
+"""Structure standardization for measured species.
+
+The goal is one canonical structure per measured species without moving the
+ionizable hydrogen: keep the largest organic fragment (drop counter-ions and
+solvent), normalize functional-group drawings (nitro, N-oxides, ...), and
+neutralize charges only by adding or removing protons on charged acids and
+bases.  Tautomers are left as drawn on purpose: canonicalizing them could move
+the proton whose loss was measured.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from functools import lru_cache
+
+from rdkit import Chem, RDLogger
+from rdkit.Chem.MolStandardize import rdMolStandardize
+
+ORIGINAL_INDEX = "pkasite_orig_idx"
+
+
+class StructureError(ValueError):
+    """A structure that cannot be used, with a short reason."""
+
+
+@dataclass(frozen=True)
+class Standardized:
+    mol: Chem.Mol
+    smiles: str
+    inchikey: str
+    site_atom: int | None  # index of the given site atom in ``smiles`` (None if not given)
+
+
+@lru_cache(maxsize=1)
+def _tools():
+    return (
+        rdMolStandardize.LargestFragmentChooser(preferOrganic=True),
+        rdMolStandardize.Normalizer(),
+        rdMolStandardize.Uncharger(),
+    )
+
+
+def quiet_rdkit() -> None:
+    """Silence RDKit's per-molecule warnings; callers report problems themselves."""
+    RDLogger.DisableLog("rdApp.*")
+
+
+def parse_smiles(smiles: str) -> Chem.Mol:
+    """Parse a SMILES string, raising :class:`StructureError` with the reason."""
+    if smiles is None or not str(smiles).strip():
+        raise StructureError("empty SMILES")
+    quiet_rdkit()
+    mol = Chem.MolFromSmiles(str(smiles).strip())
+    if mol is None:
+        raise StructureError(f"RDKit cannot parse SMILES {smiles!r}")
+    if mol.GetNumAtoms() == 0:
+        raise StructureError("SMILES has no atoms")
+    return mol
+
+
+def standardize_mol(mol: Chem.Mol, site_atom: int | None = None) -> Standardized:
+    """Standardize ``mol``; ``site_atom`` (index in ``mol``) is carried through."""
+    if site_atom is not None and not 0 <= site_atom < mol.GetNumAtoms():
+        raise StructureError(f"site_atom {site_atom} is not an atom index of the structure")
+    mol = Chem.Mol(mol)
+    for atom in mol.GetAtoms():
+        atom.SetIntProp(ORIGINAL_INDEX, atom.GetIdx())
+    chooser, normalizer, uncharger = _tools()
+    try:
+        out = chooser.choose(mol)
+        out = normalizer.normalize(out)
+        out = uncharger.uncharge(out)
+        Chem.SanitizeMol(out)
+    except Exception as exc:  # RDKit raises several unrelated types here
+        raise StructureError(f"standardization failed: {exc}") from exc
+    if not any(a.GetAtomicNum() == 6 for a in out.GetAtoms()):
+        raise StructureError("no carbon atom: not an organic structure")
+    smiles = Chem.MolToSmiles(out)
+    order = list(out.GetProp("_smilesAtomOutputOrder").strip("[]").rstrip(",").split(","))
+    order = [int(i) for i in order if i != ""]
+    new_site = None
+    if site_atom is not None:
+        for pos, idx in enumerate(order):
+            atom = out.GetAtomWithIdx(idx)
+            if atom.HasProp(ORIGINAL_INDEX) and atom.GetIntProp(ORIGINAL_INDEX) == site_atom:
+                new_site = pos
+                break
+        if new_site is None:
+            raise StructureError(f"site_atom {site_atom} is not in the kept fragment")
+    final = Chem.MolFromSmiles(smiles)
+    if final is None:
+        raise StructureError("standardized SMILES does not parse back")
+    inchikey = Chem.MolToInchiKey(final)
+    if not inchikey:
+        raise StructureError("no InChIKey for the standardized structure")
+    return Standardized(final, smiles, inchikey, new_site)
+
+
+def standardize_smiles(smiles: str, site_atom: int | None = None) -> Standardized:
+    """Parse and standardize a SMILES string (see :func:`standardize_mol`)."""
+    return standardize_mol(parse_smiles(smiles), site_atom)

@@ -1,0 +1,146 @@
+"""Run configuration and source registry: loading and validation.
+
+One YAML file describes one run.  Unknown or ill-typed keys are errors that
+name the key, so a typo never silently falls back to a default.
+"""
+from __future__ import annotations
+
+from importlib import resources
+from pathlib import Path
+from typing import Any, Literal
+
+import yaml
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
+
+
+class ConfigError(ValueError):
+    """A configuration file that cannot be used; the message names the file and key."""
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class SourceFile(_Strict):
+    name: str
+    url: str
+    sha256: str | None = None
+    kind: Literal["acid", "base"] | None = None
+    split: str | None = None
+
+
+class Source(_Strict):
+    title: str
+    enabled: bool = True
+    parser: str
+    licence: str
+    commercial_use: bool
+    citation: str
+    files: list[SourceFile]
+
+
+class Registry(_Strict):
+    version: int
+    sources: dict[str, Source]
+
+    def get(self, name: str) -> Source:
+        if name not in self.sources:
+            known = ", ".join(sorted(self.sources))
+            raise ConfigError(f"unknown source {name!r}; the registry knows: {known}")
+        return self.sources[name]
+
+
+class DataConfig(_Strict):
+    sources: list[str] = Field(default_factory=lambda: ["dwpka"])
+    splits: list[str] = Field(default_factory=lambda: ["train", "test"])
+    extra: list[str] = Field(default_factory=list)
+    extra_only: bool = False
+
+
+class CurationConfig(_Strict):
+    temperature_min_c: float = 20.0
+    temperature_max_c: float = 30.0
+    keep_unknown_temperature: bool = True
+    kelvin_above: float = 200.0
+    pka_min: float = -2.0
+    pka_max: float = 16.0
+    approximate_values: Literal["keep", "reject"] = "keep"
+    bound_values: Literal["keep", "reject"] = "reject"
+    range_values: Literal["midpoint", "reject"] = "midpoint"
+    max_range_width: float = 1.0
+    first_constant_only: bool = True
+    pkw: float = 14.0
+    conflict_spread: float = 2.0
+    conflict_action: Literal["drop", "flag"] = "drop"
+    inhouse_overrides_open: bool = True
+    iupac_assessments: list[str] = Field(default_factory=lambda: ["Reliable", "Approximate"])
+
+    @model_validator(mode="after")
+    def _windows(self):
+        if self.temperature_min_c > self.temperature_max_c:
+            raise ValueError("temperature_min_c must not exceed temperature_max_c")
+        if self.pka_min >= self.pka_max:
+            raise ValueError("pka_min must be below pka_max")
+        return self
+
+
+class RunConfig(_Strict):
+    name: str = "default"
+    seed: int = 42
+    output_dir: str = "pkasite-out"
+    data: DataConfig = Field(default_factory=DataConfig)
+    curation: CurationConfig = Field(default_factory=CurationConfig)
+
+    def with_overrides(self, overrides: dict[str, Any]) -> "RunConfig":
+        """Return a copy with dotted keys (``"data.extra"``) replaced, validated again."""
+        raw = self.model_dump()
+        for dotted, value in overrides.items():
+            node = raw
+            *parents, leaf = dotted.split(".")
+            for key in parents:
+                node = node[key]
+            node[leaf] = value
+        return _validate(RunConfig, raw, "command-line overrides")
+
+
+def _format_error(exc: ValidationError, origin: str) -> str:
+    parts = []
+    for err in exc.errors():
+        key = ".".join(str(p) for p in err["loc"]) or "(top level)"
+        msg = "unknown key" if err["type"] == "extra_forbidden" else err["msg"]
+        parts.append(f"{key}: {msg}")
+    return f"{origin}: " + "; ".join(parts)
+
+
+def _validate(model, raw, origin: str):
+    try:
+        return model.model_validate(raw)
+    except ValidationError as exc:
+        raise ConfigError(_format_error(exc, origin)) from None
+
+
+def _read_yaml(path: Path | None, packaged: str) -> tuple[Any, str]:
+    if path is None:
+        text = resources.files("pkasite.configs").joinpath(packaged).read_text()
+        return yaml.safe_load(text), f"packaged configs/{packaged}"
+    path = Path(path)
+    if not path.is_file():
+        raise ConfigError(f"{path}: no such config file")
+    try:
+        return yaml.safe_load(path.read_text()), str(path)
+    except yaml.YAMLError as exc:
+        raise ConfigError(f"{path}: not valid YAML ({exc})") from None
+
+
+def load_config(path: str | Path | None = None) -> RunConfig:
+    """Load and validate a run config; ``None`` gives the packaged default."""
+    raw, origin = _read_yaml(Path(path) if path else None, "default.yaml")
+    if not isinstance(raw, dict):
+        raise ConfigError(f"{origin}: the top level must be a mapping of keys")
+    return _validate(RunConfig, raw, origin)
+
+
+def load_registry(path: str | Path | None = None) -> Registry:
+    """Load and validate the source registry; ``None`` gives the packaged one."""
+    raw, origin = _read_yaml(Path(path) if path else None, "sources.yaml")
+    return _validate(Registry, raw, origin)

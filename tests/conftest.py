@@ -1,0 +1,35 @@
+"""Shared fixtures: the offline data mirror and one curated run of the real open data."""
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import pytest
+
+REPO = Path(__file__).resolve().parents[1]
+DATA = Path(__file__).resolve().parent / "data"
+
+
+def mirror_dir() -> Path:
+    """The data mirror: $PKASITE_MIRROR, else ../shared/data beside the checkout."""
+    path = Path(os.environ.get("PKASITE_MIRROR") or REPO.parent / "shared" / "data")
+    if not (path / "dwpka").is_dir():
+        pytest.fail(f"data mirror not found at {path}; set PKASITE_MIRROR to the folder holding dwpka/")
+    return path
+
+
+@pytest.fixture(scope="session")
+def mirror() -> Path:
+    return mirror_dir()
+
+
+@pytest.fixture(scope="session")
+def curated(mirror, tmp_path_factory):
+    """pull (from the mirror) -> curate on the packaged default config, once per session."""
+    from pkasite.pipeline.config import load_config
+    from pkasite.pipeline.workflow import curate_step, pull_step
+
+    cfg = load_config()
+    cache = tmp_path_factory.mktemp("cache")
+    files = pull_step(cfg, cache=cache, mirror=mirror)
+    return curate_step(cfg, files, tmp_path_factory.mktemp("curated"))

@@ -1,0 +1,149 @@
+"""One test per curation rule, on small hand-made raw tables (the structures are ordinary
+molecules; the values are chosen to trigger each rule, not measurements)."""
+from __future__ import annotations
+
+import math
+
+import pandas as pd
+import pytest
+from rdkit import Chem
+
+from pkasite.pipeline.config import CurationConfig
+from pkasite.pipeline.curate import Reject, curate, parse_temperature, parse_value
+from pkasite.pipeline.ingest import RAW_COLUMNS
+
+CFG = CurationConfig()
+
+
+def raw(*rows: dict) -> pd.DataFrame:
+    base = {"source": "t", "file": "t.csv", "smiles_fallback": "", "is_pkb": False, "constant_index": None,
+            "group_key": None, "temperature_text": "25", "method": "", "site_atom": None, "licence": "L",
+            "non_aqueous": "", "pressure": "", "assessment": "", "split": None, "in_house": False}
+    out = []
+    for i, r in enumerate(rows, start=1):
+        rec = {**base, "row": i, "record_id": f"r{i}", **r}
+        rec.setdefault("group_key", rec["record_id"])
+        out.append(rec)
+    return pd.DataFrame(out)[RAW_COLUMNS]
+
+
+@pytest.mark.parametrize("text,expected", [("4.76", 4.76), (" -1.5 ", -1.5), ("~3", 3.0), ("ca. 3.5", 3.5),
+                                           ("3.1-3.4", 3.25), ("3.1 - 3.4", 3.25)])
+def test_parse_value_accepts(text, expected):
+    assert parse_value(text, CFG) == pytest.approx(expected)
+
+
+@pytest.mark.parametrize("text,reason", [("<2", "value_bound"), (">12", "value_bound"), ("abc", "value_not_numeric"),
+                                         ("", "value_missing"), ("2-5", "value_range"), ("nan", "value_not_numeric")])
+def test_parse_value_rejects(text, reason):
+    with pytest.raises(Reject) as err:
+        parse_value(text, CFG)
+    assert err.value.reason == reason
+
+
+def test_value_rules_are_configurable():
+    cfg = CurationConfig(approximate_values="reject", bound_values="keep", range_values="reject")
+    assert parse_value("<2", cfg) == 2.0
+    for text in ("~3", "3.1-3.4"):
+        with pytest.raises(Reject):
+            parse_value(text, cfg)
+
+
+def test_temperature_kelvin_and_unknown():
+    assert parse_temperature("298", CFG) == pytest.approx(24.85)
+    assert parse_temperature("298.2", CFG) == pytest.approx(25.05)
+    assert parse_temperature("25 (assumed)", CFG) == 25.0
+    for unknown in ("", "not_stated", "not stated", None):
+        assert math.isnan(parse_temperature(unknown, CFG))
+    for unclear in ("<25", "45 - 25"):
+        with pytest.raises(Reject, match="temperature_unclear"):
+            parse_temperature(unclear, CFG)
+
+
+def reasons(result) -> dict:
+    return dict(zip(result.rejects["record_id"], result.rejects["reason"]))
+
+
+def test_temperature_window_and_kelvin_row_kept():
+    res = curate(raw({"smiles": "CC(=O)O", "kind": "acid", "value_text": "4.76", "temperature_text": "298"},
+                     {"smiles": "CCC(=O)O", "kind": "acid", "value_text": "4.87", "temperature_text": "37"},
+                     {"smiles": "CCCC(=O)O", "kind": "acid", "value_text": "4.82", "temperature_text": ""}), CFG)
+    assert reasons(res) == {"r2": "temperature_out_of_window"}
+    assert len(res.measurements) == 2
+    strict = curate(raw({"smiles": "CC(=O)O", "kind": "acid", "value_text": "4.76", "temperature_text": ""}),
+                    CurationConfig(keep_unknown_temperature=False))
+    assert reasons(strict) == {"r1": "temperature_unknown"}
+
+
+def test_aqueous_window_and_non_aqueous():
+    res = curate(raw({"smiles": "CC(C)O", "kind": "acid", "value_text": "17.1"},
+                     {"smiles": "CC(=O)O", "kind": "acid", "value_text": "4.7", "non_aqueous": "50% ethanol"},
+                     {"smiles": "CC(=O)O", "kind": "acid", "value_text": "4.7", "pressure": "1000 (atm)"}), CFG)
+    assert reasons(res) == {"r1": "pka_outside_window", "r2": "non_aqueous", "r3": "not_ambient_pressure"}
+
+
+def test_pkb_converted_to_pkah():
+    res = curate(raw({"smiles": "CN", "kind": "base", "value_text": "3.34", "is_pkb": True}), CFG)
+    assert res.measurements.loc[0, "pka"] == pytest.approx(14.0 - 3.34)
+
+
+def test_first_constant_rule_uses_other_kind():
+    # compound A: constant 1 acid, constant 2 base -> the base value is the first base constant (kept)
+    # compound B: constant 2 acid with no lower constant of the other kind -> a later acid constant (rejected)
+    res = curate(raw({"smiles": "NCC(=O)O", "kind": "acid", "value_text": "2.3", "constant_index": 1, "group_key": "A"},
+                     {"smiles": "NCC(=O)O", "kind": "base", "value_text": "9.7", "constant_index": 2, "group_key": "A"},
+                     {"smiles": "OC(=O)CC(=O)O", "kind": "acid", "value_text": "5.7", "constant_index": 2, "group_key": "B"}),
+                 CFG)
+    assert reasons(res) == {"r3": "later_constant"}
+    with_site = curate(raw({"smiles": "OC(=O)CC(=O)O", "kind": "acid", "value_text": "5.7", "constant_index": 2,
+                            "site_atom": "0"}), CFG)
+    assert with_site.rejects.empty
+    m = with_site.measurements.iloc[0]
+    atom = Chem.MolFromSmiles(m["smiles"]).GetAtomWithIdx(int(m["site_atom"]))
+    assert atom.GetSymbol() == "O" and atom.GetTotalNumHs() == 1  # the carried-through OH oxygen
+
+
+def test_structure_standardized_salt_removed_and_unreadable_rejected():
+    res = curate(raw({"smiles": "CC(=O)[O-].[Na+]", "kind": "acid", "value_text": "4.76"},
+                     {"smiles": "C[NH3+].[Cl-]", "kind": "base", "value_text": "10.6"},
+                     {"smiles": "C1CC", "kind": "acid", "value_text": "4"},
+                     {"smiles": "[Na+].[Cl-]", "kind": "acid", "value_text": "4"}), CFG)
+    assert set(res.measurements["smiles"]) == {"CC(=O)O", "CN"}
+    assert reasons(res) == {"r3": "structure_invalid", "r4": "structure_invalid"}
+
+
+def test_fallback_smiles_used_when_primary_fails():
+    res = curate(raw({"smiles": "C1CC", "smiles_fallback": "CC(=O)O", "kind": "acid", "value_text": "4.76"}), CFG)
+    assert res.rejects.empty and res.measurements.loc[0, "smiles"] == "CC(=O)O"
+
+
+def test_replicates_median_and_conflicts():
+    rows = [{"smiles": s, "kind": "acid", "value_text": v} for s, v in
+            [("CC(=O)O", "4.70"), ("OC(C)=O", "4.80"), ("CC([O-])=O", "4.76"),   # same species, three drawings
+             ("Oc1ccccc1", "10.0"), ("Oc1ccccc1", "6.0")]]                       # conflict: spread 4
+    res = curate(raw(*rows), CFG)
+    acetic = res.measurements[res.measurements["smiles"] == "CC(=O)O"].iloc[0]
+    assert acetic["n"] == 3 and acetic["pka"] == pytest.approx(4.76) and acetic["spread"] == pytest.approx(0.10)
+    assert acetic["members"] == "t:r1;t:r2;t:r3"
+    assert reasons(res) == {"r4": "conflicting_replicates", "r5": "conflicting_replicates"}
+    flagged = curate(raw(*rows), CurationConfig(conflict_action="flag"))
+    assert flagged.rejects.empty and flagged.measurements["conflict"].sum() == 1
+
+
+def test_inhouse_overrides_open_value():
+    res = curate(raw({"smiles": "CC(=O)O", "kind": "acid", "value_text": "4.76"},
+                     {"smiles": "CC(=O)O", "kind": "acid", "value_text": "4.60", "in_house": True, "source": "inhouse:x"}),
+                 CFG)
+    assert reasons(res) == {"r1": "superseded_by_inhouse"}
+    assert res.measurements.loc[0, "pka"] == pytest.approx(4.60) and bool(res.measurements.loc[0, "in_house"])
+    merged = curate(raw({"smiles": "CC(=O)O", "kind": "acid", "value_text": "4.76"},
+                        {"smiles": "CC(=O)O", "kind": "acid", "value_text": "4.60", "in_house": True}),
+                    CurationConfig(inhouse_overrides_open=False))
+    assert merged.rejects.empty and merged.measurements.loc[0, "n"] == 2
+
+
+def test_every_row_is_accounted_for():
+    rows = [{"smiles": "CC(=O)O", "kind": "acid", "value_text": v} for v in ("4.7", "x", "<1", "20")]
+    res = curate(raw(*rows), CFG)
+    assert res.summary["rows_in"] == 4 and res.summary["rows_kept"] + res.summary["rows_rejected"] == 4
+    assert res.summary["accounted"]
