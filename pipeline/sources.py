@@ -138,9 +138,9 @@ def pull_source(name: str, source: Source, cache: Path, mirror: Path | None = No
 def pull(registry: Registry, names: list[str], cache: Path | None = None, mirror: Path | None = None,
          force: bool = False, timeout: float = 30.0, retries: int = 3,
          log: Callable[[str], None] = lambda msg: None) -> list[PulledFile]:
-    """Pull the named sources (see :func:`pull_source`)."""
+    """Pull the named sources (see :func:`pull_source`); ``mirror=None`` downloads over HTTP(S)."""
     cache = Path(cache) if cache else default_cache_dir()
-    mirror = Path(mirror) if mirror else default_mirror()
+    mirror = Path(mirror) if mirror else None
     files = []
     for name in names:
         files.extend(pull_source(name, registry.get(name), cache, mirror, force, timeout, retries, log))

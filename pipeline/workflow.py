@@ -14,7 +14,7 @@ import pandas as pd
 from .config import Registry, RunConfig, load_registry
 from .curate import CurationResult, curate, format_summary
 from .ingest import PARSERS, parse_inhouse
-from .sources import PulledFile, pull
+from .sources import PulledFile, default_mirror, pull
 from .tables import write_json, write_table
 
 Log = Callable[[str], None]
@@ -26,10 +26,14 @@ def _quiet(msg: str) -> None:
 
 def pull_step(cfg: RunConfig, registry: Registry | None = None, cache: Path | None = None,
               mirror: Path | None = None, force: bool = False, log: Log = _quiet) -> list[PulledFile]:
-    """Pull the sources the config names (not needed when ``data.extra_only`` is set)."""
+    """Pull the sources the config names (not needed when ``data.extra_only`` is set).
+
+    ``mirror`` defaults to ``$PKASITE_MIRROR``; without either, files are downloaded.
+    """
     registry = registry or load_registry()
     if cfg.data.extra_only:
         return []
+    mirror = mirror or default_mirror()
     return pull(registry, cfg.data.sources, cache=cache, mirror=mirror, force=force, log=log)
 
 
