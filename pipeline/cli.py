@@ -128,15 +128,12 @@ def run_cmd(out_dir, extra, mirror, cache, config, sets):
     click.echo(f"curated measurements: {cur.measurements}")
 
 
-def _register_optional_commands() -> None:
-    try:
-        from .cli_sites import sites
-    except ImportError:
-        return
-    main.add_command(sites)
+def _register_commands() -> None:
+    from .cli_sites import sites_command
+    main.add_command(sites_command)
 
 
-_register_optional_commands()
+_register_commands()
 
 if __name__ == "__main__":
     main()

@@ -1,0 +1,363 @@
+"""Ionizable-site catalog and site perception.
+
+The catalog (``site_catalog.yaml``, shipped with the package) lists site types as SMARTS patterns
+with the ionizable atom marked by atom map number 1: the atom that loses a proton for an acid, the
+atom that gains one for a base. :func:`find_sites` returns those atoms for a molecule, and
+:func:`assign_site` attaches a molecule-level measured constant to one of them.
+
+Pure functions of an RDKit molecule; the only file read is the catalog.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from functools import lru_cache
+from importlib import resources
+from pathlib import Path
+from types import MappingProxyType
+from typing import Mapping, Sequence
+
+import yaml
+from rdkit import Chem
+
+__all__ = [
+    "KINDS",
+    "SiteType",
+    "Site",
+    "Exclusion",
+    "Catalog",
+    "Assignment",
+    "CatalogError",
+    "SiteError",
+    "NoSiteError",
+    "SiteAssignmentError",
+    "load_catalog",
+    "find_sites",
+    "assign_site",
+    "assignment_confidence",
+]
+
+KINDS = ("acid", "base")
+CATALOG_FILE = "site_catalog.yaml"
+_TYPE_KEYS = {"name", "kind", "smarts", "prior", "range", "source", "priority"}
+_EXCLUSION_KEYS = {"name", "kind", "smarts", "reason"}
+
+
+class CatalogError(ValueError):
+    """The site catalog file is malformed; the message names the file and the entry."""
+
+
+class SiteError(ValueError):
+    """Base class for site perception and assignment errors."""
+
+
+class NoSiteError(SiteError):
+    """The molecule has no ionizable site of the requested kind."""
+
+
+class SiteAssignmentError(SiteError):
+    """An explicitly given site atom is not a site of the requested kind."""
+
+
+@dataclass(frozen=True)
+class SiteType:
+    """One catalog entry: a SMARTS pattern for an ionizable group and its typical pKa."""
+
+    name: str
+    kind: str
+    smarts: str
+    prior: float
+    low: float
+    high: float
+    source: str
+    priority: int = 0
+
+
+@dataclass(frozen=True)
+class Exclusion:
+    """A pattern whose mapped atom is never a site of ``kind`` (e.g. the NH2 of 2-aminopyridine)."""
+
+    name: str
+    kind: str
+    smarts: str
+    reason: str
+
+
+@dataclass(frozen=True)
+class Site:
+    """An ionizable atom of a molecule (index in the molecule's own atom order)."""
+
+    atom: int
+    type: str
+    kind: str
+    prior: float
+
+
+@dataclass(frozen=True)
+class Assignment:
+    """The site a molecule-level constant is attached to, with a confidence in [0, 1]."""
+
+    atom: int
+    type: str
+    confidence: float
+    reason: str
+
+
+@dataclass(frozen=True, eq=False)
+class _Pattern:
+    """A compiled SMARTS query and the query-atom index carrying map number 1."""
+
+    query: Chem.Mol
+    mapped: int
+
+
+@dataclass(frozen=True, eq=False)
+class Catalog:
+    """Validated site types (sorted by descending priority, then file order) and exclusions."""
+
+    version: str
+    types: tuple[SiteType, ...]
+    exclusions: tuple[Exclusion, ...] = ()
+    by_name: Mapping[str, SiteType] = field(default_factory=dict)
+    _type_patterns: tuple[_Pattern, ...] = ()
+    _exclusion_patterns: tuple[_Pattern, ...] = ()
+
+
+# ----------------------------------------------------------------------------- catalog loading
+
+
+def _compile(smarts: object, where: str) -> _Pattern:
+    """Parse a SMARTS string and locate its single atom with map number 1."""
+    if not isinstance(smarts, str) or not smarts.strip():
+        raise CatalogError(f"{where}: 'smarts' must be a non-empty string")
+    query = Chem.MolFromSmarts(smarts)
+    if query is None:
+        raise CatalogError(f"{where}: SMARTS {smarts!r} does not parse; check brackets and primitives")
+    mapped = [a.GetIdx() for a in query.GetAtoms() if a.GetAtomMapNum()]
+    if len(mapped) != 1 or query.GetAtomWithIdx(mapped[0]).GetAtomMapNum() != 1:
+        raise CatalogError(
+            f"{where}: SMARTS {smarts!r} has {len(mapped)} mapped atoms; "
+            "mark exactly one atom (the ionizable one) with ':1'"
+        )
+    return _Pattern(query, mapped[0])
+
+
+def _check_keys(entry: object, allowed: set[str], required: set[str], where: str) -> dict:
+    if not isinstance(entry, dict):
+        raise CatalogError(f"{where}: expected a mapping, got {type(entry).__name__}")
+    unknown = set(entry) - allowed
+    if unknown:
+        raise CatalogError(f"{where}: unknown key(s) {sorted(unknown)}; allowed: {sorted(allowed)}")
+    missing = required - set(entry)
+    if missing:
+        raise CatalogError(f"{where}: missing key(s) {sorted(missing)}")
+    if entry["kind"] not in KINDS:
+        raise CatalogError(f"{where}: kind {entry['kind']!r} must be one of {KINDS}")
+    return entry
+
+
+def _parse_type(entry: object, where: str) -> SiteType:
+    entry = _check_keys(entry, _TYPE_KEYS, _TYPE_KEYS - {"priority"}, where)
+    try:
+        prior = float(entry["prior"])
+        low, high = (float(v) for v in entry["range"])
+        priority = int(entry.get("priority", 0))
+    except (TypeError, ValueError) as exc:
+        raise CatalogError(
+            f"{where}: 'prior' must be a number, 'range' a pair [low, high], 'priority' an integer ({exc})"
+        ) from None
+    if not low <= prior <= high:
+        raise CatalogError(f"{where}: prior {prior} lies outside range [{low}, {high}]")
+    return SiteType(
+        name=str(entry["name"]),
+        kind=entry["kind"],
+        smarts=entry["smarts"],
+        prior=prior,
+        low=low,
+        high=high,
+        source=str(entry["source"]),
+        priority=priority,
+    )
+
+
+def _read_catalog(path: Path | None) -> tuple[str, object]:
+    if path is None:
+        resource = resources.files("pkasite.features").joinpath(CATALOG_FILE)
+        if not resource.is_file():
+            # Another distribution can shadow the ``pkasite.features`` package path (namespace
+            # packages); the catalog always sits next to this module.
+            resource = Path(__file__).with_name(CATALOG_FILE)
+        return f"pkasite.features/{CATALOG_FILE}", yaml.safe_load(resource.read_text(encoding="utf-8"))
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except OSError as exc:
+        raise CatalogError(f"cannot read site catalog {path}: {exc}") from None
+    return str(path), yaml.safe_load(text)
+
+
+def _build_catalog(path: Path | None) -> Catalog:
+    label, data = _read_catalog(path)
+    if not isinstance(data, dict) or "version" not in data or not isinstance(data.get("site_types"), list):
+        raise CatalogError(f"{label}: expected top-level keys 'version' and 'site_types' (a list)")
+    unknown = set(data) - {"version", "site_types", "exclusions"}
+    if unknown:
+        raise CatalogError(f"{label}: unknown top-level key(s) {sorted(unknown)}")
+
+    parsed: list[tuple[SiteType, _Pattern]] = []
+    seen: set[str] = set()
+    for i, entry in enumerate(data["site_types"]):
+        name = entry.get("name", "?") if isinstance(entry, dict) else "?"
+        where = f"{label}: site_types[{i}] ({name!r})"
+        site_type = _parse_type(entry, where)
+        if site_type.name in seen:
+            raise CatalogError(f"{where}: duplicate name; site type names must be unique")
+        seen.add(site_type.name)
+        parsed.append((site_type, _compile(site_type.smarts, where)))
+    # Stable sort: higher priority first, file order among equals.
+    parsed.sort(key=lambda pair: -pair[0].priority)
+
+    exclusions: list[tuple[Exclusion, _Pattern]] = []
+    for i, entry in enumerate(data.get("exclusions") or []):
+        name = entry.get("name", "?") if isinstance(entry, dict) else "?"
+        where = f"{label}: exclusions[{i}] ({name!r})"
+        entry = _check_keys(entry, _EXCLUSION_KEYS, _EXCLUSION_KEYS, where)
+        exclusion = Exclusion(str(entry["name"]), entry["kind"], entry["smarts"], str(entry["reason"]))
+        exclusions.append((exclusion, _compile(exclusion.smarts, where)))
+
+    types = tuple(t for t, _ in parsed)
+    return Catalog(
+        version=str(data["version"]),
+        types=types,
+        exclusions=tuple(e for e, _ in exclusions),
+        by_name=MappingProxyType({t.name: t for t in types}),
+        _type_patterns=tuple(p for _, p in parsed),
+        _exclusion_patterns=tuple(p for _, p in exclusions),
+    )
+
+
+@lru_cache(maxsize=8)
+def _cached_catalog(path: str | None) -> Catalog:
+    return _build_catalog(Path(path) if path is not None else None)
+
+
+def load_catalog(path: str | Path | None = None) -> Catalog:
+    """Load and validate a site catalog (the packaged one by default); results are cached per path.
+
+    Raises :class:`CatalogError` naming the entry when a SMARTS does not parse, does not mark
+    exactly one atom with ``:1``, has an unknown ``kind``, or repeats a name.
+    """
+    return _cached_catalog(str(Path(path).resolve()) if path is not None else None)
+
+
+# ----------------------------------------------------------------------------- perception
+
+
+def _mapped_atoms(mol: Chem.Mol, pattern: _Pattern) -> set[int]:
+    """Indices of molecule atoms matched by the pattern's mapped atom (all matches, not uniquified)."""
+    matches = mol.GetSubstructMatches(pattern.query, uniquify=False, maxMatches=100000)
+    return {match[pattern.mapped] for match in matches}
+
+
+def find_sites(mol: Chem.Mol, catalog: Catalog | None = None) -> list[Site]:
+    """Ionizable sites of ``mol``, sorted by atom index then kind.
+
+    Indices refer to ``mol``'s own atom order (explicit hydrogens, if present, keep their indices
+    and are never sites). Each (atom, kind) gets one site: the matching type with the highest
+    priority. Atoms matched by an exclusion of that kind are not sites. Works on neutral forms,
+    ions and zwitterions alike (acid patterns match the conjugate base, base patterns the
+    conjugate acid).
+    """
+    if mol is None:
+        raise SiteError("find_sites needs an RDKit molecule, got None (unreadable SMILES?)")
+    catalog = catalog or load_catalog()
+    excluded = {kind: set() for kind in KINDS}
+    for exclusion, pattern in zip(catalog.exclusions, catalog._exclusion_patterns):
+        excluded[exclusion.kind] |= _mapped_atoms(mol, pattern)
+    found: dict[tuple[int, str], Site] = {}
+    for site_type, pattern in zip(catalog.types, catalog._type_patterns):
+        for atom in _mapped_atoms(mol, pattern):
+            key = (atom, site_type.kind)
+            if key not in found and atom not in excluded[site_type.kind]:
+                found[key] = Site(atom, site_type.name, site_type.kind, site_type.prior)
+    return [found[key] for key in sorted(found)]
+
+
+# ----------------------------------------------------------------------------- label assignment
+
+
+def assignment_confidence(gap: float) -> float:
+    """Confidence from the pKa gap between the chosen site and the runner-up: ``1 - exp(-gap)``.
+
+    A gap of 0 (indistinguishable sites) gives 0, one pKa unit about 0.63, three units about 0.95.
+    """
+    return 1.0 - math.exp(-max(gap, 0.0))
+
+
+def _distinct_candidates(mol: Chem.Mol, candidates: Sequence[Site]) -> list[Site]:
+    """Keep one site per class of symmetry-equivalent atoms (the lowest index)."""
+    ranks = list(Chem.CanonicalRankAtoms(mol, breakTies=False))
+    seen: set[int] = set()
+    kept = []
+    for site in sorted(candidates, key=lambda s: s.atom):
+        if ranks[site.atom] not in seen:
+            seen.add(ranks[site.atom])
+            kept.append(site)
+    return kept
+
+
+def assign_site(
+    mol: Chem.Mol,
+    kind: str,
+    sites: Sequence[Site] | None = None,
+    site_atom: int | None = None,
+    predicted: Mapping[int, float] | None = None,
+) -> Assignment:
+    """Choose the site a molecule-level constant of ``kind`` belongs to.
+
+    Order of rules: an explicit ``site_atom`` wins (it must be a site of that kind); otherwise,
+    when ``predicted`` (atom -> predicted pKa) is given, the most acidic (lowest) acid site or the
+    most basic (highest) base site by prediction, sites without a prediction falling back to their
+    catalog prior; otherwise the same choice by catalog prior. Symmetry-equivalent atoms count as
+    one candidate (lowest index is reported). ``confidence`` is
+    :func:`assignment_confidence` of the gap to the runner-up, 1.0 with a single candidate or an
+    explicit atom.
+    """
+    if kind not in KINDS:
+        raise ValueError(f"kind must be one of {KINDS}, got {kind!r}")
+    if sites is None:
+        sites = find_sites(mol)
+    candidates = [s for s in sites if s.kind == kind]
+    if not candidates:
+        raise NoSiteError(
+            f"no {kind} site found in {Chem.MolToSmiles(mol)}; no {kind} group of the catalog "
+            f"matches this molecule, so a measured {kind} constant cannot be attached to an atom"
+        )
+    if site_atom is not None:
+        for site in candidates:
+            if site.atom == site_atom:
+                return Assignment(site.atom, site.type, 1.0, "explicit site_atom")
+        available = ", ".join(f"{s.atom} ({s.type})" for s in candidates)
+        raise SiteAssignmentError(
+            f"atom {site_atom} is not a {kind} site of {Chem.MolToSmiles(mol)}; "
+            f"{kind} sites are: {available}"
+        )
+
+    distinct = _distinct_candidates(mol, candidates)
+    source = "predicted pKa" if predicted is not None else "catalog prior"
+    predicted = predicted or {}
+    sign = 1.0 if kind == "acid" else -1.0  # acids: lowest value wins; bases: highest wins
+
+    def value(site: Site) -> float:
+        return float(predicted.get(site.atom, site.prior))
+
+    ranked = sorted(distinct, key=lambda s: (sign * value(s), s.atom))
+    chosen = ranked[0]
+    if len(ranked) == 1:
+        confidence = 1.0
+    else:
+        confidence = assignment_confidence(abs(value(ranked[1]) - value(chosen)))
+    extreme = "lowest" if kind == "acid" else "highest"
+    reason = f"{extreme} {source} ({value(chosen):.2f}) among {len(ranked)} distinct {kind} site(s)"
+    return Assignment(chosen.atom, chosen.type, confidence, reason)
