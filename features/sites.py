@@ -11,6 +11,7 @@ Pure functions of an RDKit molecule; the only file read is the catalog.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass, field
 from functools import lru_cache
 from importlib import resources
@@ -106,10 +107,16 @@ class Assignment:
 
 @dataclass(frozen=True, eq=False)
 class _Pattern:
-    """A compiled SMARTS query and the query-atom index carrying map number 1."""
+    """A compiled SMARTS query, the query-atom index carrying map number 1, and an element screen.
+
+    ``elements`` holds, for each query atom restricted to a known set of elements, that set as atom
+    codes (atomic number, plus 1000 when aromatic); a molecule can only match if it has at least
+    one atom code of every set (checked before the comparatively slow substructure search).
+    """
 
     query: Chem.Mol
     mapped: int
+    elements: tuple[frozenset[int], ...] = ()
 
 
 @dataclass(frozen=True, eq=False)
@@ -127,6 +134,56 @@ class Catalog:
 # ----------------------------------------------------------------------------- catalog loading
 
 
+_AROMATIC = 1000  # offset RDKit's AtomType query adds to the atomic number of aromatic atoms
+
+
+def _atom_code(atom: Chem.Atom) -> int:
+    return atom.GetAtomicNum() + _AROMATIC * atom.GetIsAromatic()
+
+
+def _query_tree(description: str) -> list:
+    """Parse RDKit's ``DescribeQuery`` text (two-space indentation) into nested ``[label, children]``."""
+    root: list = ["root", []]
+    stack = [(-1, root)]
+    for line in description.splitlines():
+        if not line.strip():
+            continue
+        depth = (len(line) - len(line.lstrip(" "))) // 2
+        node = [line.strip(), []]
+        while stack[-1][0] >= depth:
+            stack.pop()
+        stack[-1][1][1].append(node)
+        stack.append((depth, node))
+    return root[1]
+
+
+def _possible_elements(node: list) -> frozenset[int] | None:
+    """Atom codes (atomic number, +1000 if aromatic) a query node can match; None if unrestricted."""
+    label, children = node
+    if label == "AtomAnd":
+        sets = [e for e in (_possible_elements(c) for c in children) if e is not None]
+        return frozenset.intersection(*sets) if sets else None
+    if label == "AtomOr":
+        sets = [_possible_elements(c) for c in children]
+        return None if any(e is None for e in sets) else frozenset().union(*sets)
+    match = re.fullmatch(r"(AtomType|AtomAtomicNum) (\d+) = val", label)
+    if match:
+        value = int(match.group(2))
+        # AtomType already encodes aromaticity (aromatic = atomic number + 1000); #n allows both
+        return frozenset({value} if match.group(1) == "AtomType" else {value, value + _AROMATIC})
+    return None  # other primitives, negations, recursive SMARTS, wildcards
+
+
+def _element_screen(query: Chem.Mol) -> tuple[frozenset[int], ...]:
+    screen = set()
+    for atom in query.GetAtoms():
+        tree = _query_tree(atom.DescribeQuery()) if atom.HasQuery() else []
+        elements = _possible_elements(tree[0]) if len(tree) == 1 else None
+        if elements:
+            screen.add(elements)
+    return tuple(screen)
+
+
 def _compile(smarts: object, where: str) -> _Pattern:
     """Parse a SMARTS string and locate its single atom with map number 1."""
     if not isinstance(smarts, str) or not smarts.strip():
@@ -140,7 +197,7 @@ def _compile(smarts: object, where: str) -> _Pattern:
             f"{where}: SMARTS {smarts!r} has {len(mapped)} mapped atoms; "
             "mark exactly one atom (the ionizable one) with ':1'"
         )
-    return _Pattern(query, mapped[0])
+    return _Pattern(query, mapped[0], _element_screen(query))
 
 
 def _check_keys(entry: object, allowed: set[str], required: set[str], where: str) -> dict:
@@ -254,8 +311,14 @@ def load_catalog(path: str | Path | None = None) -> Catalog:
 # ----------------------------------------------------------------------------- perception
 
 
-def _mapped_atoms(mol: Chem.Mol, pattern: _Pattern) -> set[int]:
-    """Indices of molecule atoms matched by the pattern's mapped atom (all matches, not uniquified)."""
+def _mapped_atoms(mol: Chem.Mol, pattern: _Pattern, elements: frozenset[int] | None = None) -> set[int]:
+    """Indices of molecule atoms matched by the pattern's mapped atom (all matches, not uniquified).
+
+    ``elements`` (the molecule's atom codes, see :class:`_Pattern`) lets a pattern that needs an
+    element the molecule lacks skip the search.
+    """
+    if elements is not None and any(elements.isdisjoint(need) for need in pattern.elements):
+        return set()
     matches = mol.GetSubstructMatches(pattern.query, uniquify=False, maxMatches=100000)
     return {match[pattern.mapped] for match in matches}
 
@@ -272,12 +335,13 @@ def find_sites(mol: Chem.Mol, catalog: Catalog | None = None) -> list[Site]:
     if mol is None:
         raise SiteError("find_sites needs an RDKit molecule, got None (unreadable SMILES?)")
     catalog = catalog or load_catalog()
+    elements = frozenset(map(_atom_code, mol.GetAtoms()))
     excluded = {kind: set() for kind in KINDS}
     for exclusion, pattern in zip(catalog.exclusions, catalog._exclusion_patterns):
-        excluded[exclusion.kind] |= _mapped_atoms(mol, pattern)
+        excluded[exclusion.kind] |= _mapped_atoms(mol, pattern, elements)
     found: dict[tuple[int, str], Site] = {}
     for site_type, pattern in zip(catalog.types, catalog._type_patterns):
-        for atom in _mapped_atoms(mol, pattern):
+        for atom in _mapped_atoms(mol, pattern, elements):
             key = (atom, site_type.kind)
             if key not in found and atom not in excluded[site_type.kind]:
                 found[key] = Site(atom, site_type.name, site_type.kind, site_type.prior)
