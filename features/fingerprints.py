@@ -27,6 +27,7 @@ __all__ = [
     "mol_fingerprint_counts",
     "site_environment_ids",
     "site_environment_counts",
+    "site_neighbourhood_bits",
 ]
 
 MAX_RADIUS = 6
@@ -112,3 +113,17 @@ def site_environment_counts(
         if ident is not None:
             vec[i * n_bits + ident % n_bits] += 1.0
     return vec
+
+
+def site_neighbourhood_bits(mol: Chem.Mol, atom: int, radius: int = 3, n_bits: int = 1024) -> np.ndarray:
+    """Binary fingerprint of the site's neighbourhood, for nearest-neighbour similarity.
+
+    The Morgan environments (radius 0..2) rooted at every atom within ``radius`` bonds of
+    the site, hashed into ``n_bits``; two sites whose surroundings look alike share most bits.
+    """
+    if not 0 <= atom < mol.GetNumAtoms():
+        raise IndexError(f"atom index {atom} out of range for a molecule with {mol.GetNumAtoms()} atoms")
+    dist = Chem.GetDistanceMatrix(mol)[atom]
+    roots = [int(i) for i in np.flatnonzero(dist <= radius)]
+    gen = _morgan(2, _check_bits(n_bits), False)
+    return gen.GetFingerprintAsNumPy(mol, fromAtoms=roots).astype(np.uint8)

@@ -371,12 +371,28 @@ def _distinct_candidates(mol: Chem.Mol, candidates: Sequence[Site]) -> list[Site
     return kept
 
 
+def _consistent_with(sites: list[Site], value: float, tolerance: float, by_prediction: bool,
+                     site_value, catalog: Catalog) -> list[Site]:
+    """The sites a measured value can belong to (see :func:`assign_site`); never empty."""
+    def gap(site: Site) -> float:
+        if by_prediction:
+            return abs(site_value(site) - value)
+        t = catalog.by_name[site.type]
+        return max(t.low - value, value - t.high, 0.0)
+
+    consistent = [s for s in sites if gap(s) <= tolerance]
+    return consistent or [min(sites, key=lambda s: (gap(s), s.atom))]
+
+
 def assign_site(
     mol: Chem.Mol,
     kind: str,
     sites: Sequence[Site] | None = None,
     site_atom: int | None = None,
     predicted: Mapping[int, float] | None = None,
+    value: float | None = None,
+    tolerance: float = 2.0,
+    catalog: Catalog | None = None,
 ) -> Assignment:
     """Choose the site a molecule-level constant of ``kind`` belongs to.
 
@@ -384,7 +400,13 @@ def assign_site(
     when ``predicted`` (atom -> predicted pKa) is given, the most acidic (lowest) acid site or the
     most basic (highest) base site by prediction, sites without a prediction falling back to their
     catalog prior; otherwise the same choice by catalog prior. Symmetry-equivalent atoms count as
-    one candidate (lowest index is reported). ``confidence`` is
+    one candidate (lowest index is reported).
+
+    With the measured ``value`` given, only sites consistent with it compete: by prediction, those
+    predicted within ``tolerance`` of the value; by prior, those whose catalog range widened by
+    ``tolerance`` holds it. Compilations sometimes list a molecule's second constant of a kind (a
+    phenol's 10 beside a carboxylic acid); such a value then goes to the site it can belong to.
+    When no site is consistent, the one closest to the value is chosen. ``confidence`` is
     :func:`assignment_confidence` of the gap to the runner-up, 1.0 with a single candidate or an
     explicit atom.
     """
@@ -410,18 +432,23 @@ def assign_site(
 
     distinct = _distinct_candidates(mol, candidates)
     source = "predicted pKa" if predicted is not None else "catalog prior"
+    by_prediction = predicted is not None
     predicted = predicted or {}
     sign = 1.0 if kind == "acid" else -1.0  # acids: lowest value wins; bases: highest wins
 
-    def value(site: Site) -> float:
+    def site_value(site: Site) -> float:
         return float(predicted.get(site.atom, site.prior))
 
-    ranked = sorted(distinct, key=lambda s: (sign * value(s), s.atom))
+    if value is not None and len(distinct) > 1:
+        distinct = _consistent_with(distinct, float(value), tolerance, by_prediction, site_value,
+                                    catalog or load_catalog())
+
+    ranked = sorted(distinct, key=lambda s: (sign * site_value(s), s.atom))
     chosen = ranked[0]
     if len(ranked) == 1:
         confidence = 1.0
     else:
-        confidence = assignment_confidence(abs(value(ranked[1]) - value(chosen)))
+        confidence = assignment_confidence(abs(site_value(ranked[1]) - site_value(chosen)))
     extreme = "lowest" if kind == "acid" else "highest"
-    reason = f"{extreme} {source} ({value(chosen):.2f}) among {len(ranked)} distinct {kind} site(s)"
+    reason = f"{extreme} {source} ({site_value(chosen):.2f}) among {len(ranked)} distinct {kind} site(s)"
     return Assignment(chosen.atom, chosen.type, confidence, reason)

@@ -28,6 +28,7 @@ class Standardized:
     smiles: str
     inchikey: str
     site_atom: int | None  # index of the given site atom in ``smiles`` (None if not given)
+    original_atoms: tuple[int, ...] = ()  # for each atom of ``mol``, its index in the input (-1: added)
 
 
 @lru_cache(maxsize=1)
@@ -77,22 +78,20 @@ def standardize_mol(mol: Chem.Mol, site_atom: int | None = None) -> Standardized
     smiles = Chem.MolToSmiles(out)
     order = list(out.GetProp("_smilesAtomOutputOrder").strip("[]").rstrip(",").split(","))
     order = [int(i) for i in order if i != ""]
+    original = tuple(out.GetAtomWithIdx(idx).GetIntProp(ORIGINAL_INDEX)
+                     if out.GetAtomWithIdx(idx).HasProp(ORIGINAL_INDEX) else -1 for idx in order)
     new_site = None
     if site_atom is not None:
-        for pos, idx in enumerate(order):
-            atom = out.GetAtomWithIdx(idx)
-            if atom.HasProp(ORIGINAL_INDEX) and atom.GetIntProp(ORIGINAL_INDEX) == site_atom:
-                new_site = pos
-                break
-        if new_site is None:
+        if site_atom not in original:
             raise StructureError(f"site_atom {site_atom} is not in the kept fragment")
+        new_site = original.index(site_atom)
     final = Chem.MolFromSmiles(smiles)
     if final is None:
         raise StructureError("standardized SMILES does not parse back")
     inchikey = Chem.MolToInchiKey(final)
     if not inchikey:
         raise StructureError("no InChIKey for the standardized structure")
-    return Standardized(final, smiles, inchikey, new_site)
+    return Standardized(final, smiles, inchikey, new_site, original)
 
 
 def standardize_smiles(smiles: str, site_atom: int | None = None) -> Standardized:

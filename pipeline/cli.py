@@ -108,6 +108,95 @@ def curate_cmd(out_dir, fmt, extra, extra_only, mirror, cache, config, sets):
     click.echo(f"measurements: {result.measurements}\nrejects:      {result.rejects}\nsummary:      {result.summary}")
 
 
+def _curated(cfg: RunConfig, cache, mirror, out: Path):
+    from .workflow import curate_step, pull_step
+    files = pull_step(cfg, cache=cache, mirror=mirror, log=_log)
+    return curate_step(cfg, files, out / "curated", log=_log)
+
+
+@main.command("train")
+@click.option("-o", "--out", "out_dir", type=click.Path(file_okay=False), help="Output folder (default: <output_dir>/<config name>).")
+@extra_option
+@click.option("--extra-only", is_flag=True, default=None, help="Train on the in-house files alone.")
+@click.option("--no-mlflow", is_flag=True, help="Do not log to MLflow.")
+@mirror_option
+@cache_option
+@config_option
+@set_option
+@_fail_cleanly
+def train_cmd(out_dir, extra, extra_only, no_mlflow, mirror, cache, config, sets):
+    """Curate, then train site models with three cross-validation schemes; log to MLflow."""
+    from .workflow import train_step
+    cfg = _resolve_config(config, sets, **{"data.extra": list(extra) or None, "data.extra_only": extra_only,
+                                           "mlflow.enabled": False if no_mlflow else None})
+    out = Path(out_dir) if out_dir else Path(cfg.output_dir) / cfg.name
+    cur = _curated(cfg, cache, mirror, out)
+    result = train_step(cfg, cur.result.measurements, out, extra_artifacts=[cur.summary], log=_log)
+    click.echo(f"model bundle: {result.bundle}\ncv metrics:   {result.cv_metrics}")
+    if result.mlflow:
+        click.echo(f"mlflow run:   {result.mlflow['run_id']} (model version {result.mlflow['version']}, alias candidate)")
+
+
+@main.command("promote")
+@click.argument("version")
+@click.option("--alias", default="production", show_default=True)
+@config_option
+@set_option
+@_fail_cleanly
+def promote_cmd(version, alias, config, sets):
+    """Point the registered model's alias (default: production) at VERSION."""
+    from .tracking import promote
+    cfg = _resolve_config(config, sets)
+    promote(cfg.mlflow.tracking_uri, cfg.mlflow.registered_model, version, alias)
+    click.echo(f"{cfg.mlflow.registered_model} version {version} is now @{alias}")
+
+
+def _resolve_model(model: str | None, tracking_uri: str) -> Path:
+    """A bundle folder, an MLflow model URI (models:/NAME@ALIAS, runs:/...), or the shipped default."""
+    from .bundle import verify_bundle
+    from .predict import default_model_path
+    if model is None:
+        return default_model_path()
+    if ":/" in model:
+        from .tracking import download_bundle
+        return download_bundle(model, tracking_uri)
+    path = Path(model)
+    verify_bundle(path)
+    return path
+
+
+@main.command("predict")
+@click.argument("input_path", metavar="INPUT", type=click.Path(dir_okay=False))
+@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
+              help="Per-molecule table; format from the extension (.csv, .tsv, .parquet).")
+@click.option("--sites", "sites_out", type=click.Path(dir_okay=False), help="Also write the per-site table here.")
+@click.option("--ph", type=float, default=7.4, show_default=True, help="pH for charge state and major species.")
+@click.option("--model", help="Bundle folder or MLflow URI (models:/NAME@ALIAS, runs:/ID/model); default: the shipped model.")
+@click.option("--jobs", type=click.IntRange(1, 64), default=1, show_default=True, help="Worker processes.")
+@click.option("--chunk-size", type=click.IntRange(1, 1_000_000), default=1000, show_default=True)
+@click.option("--smiles-col", help="SMILES column name (default: auto-detected).")
+@click.option("--id-col", help="Id column name (default: auto-detected, else row numbers).")
+@click.option("--quiet", is_flag=True, help="No progress line.")
+@config_option
+@_fail_cleanly
+def predict_cmd(input_path, output, sites_out, ph, model, jobs, chunk_size, smiles_col, id_col, quiet, config):
+    """Predict site pKa, macro pKa, charge at pH, intervals and domain warnings for a file of molecules.
+
+    INPUT is CSV/TSV (SMILES column auto-detected), .smi, .sdf or .parquet. Every input row gives
+    one output row, in input order, with a status; predictions are estimates, not measurements.
+    """
+    from .batch import run_batch
+    cfg = load_config(config)
+    bundle = _resolve_model(model, cfg.mlflow.tracking_uri)
+    result = run_batch(Path(input_path), Path(output), bundle, Path(sites_out) if sites_out else None, ph=ph,
+                       jobs=jobs, chunk_size=chunk_size, smiles_col=smiles_col, id_col=id_col,
+                       progress=not quiet)
+    statuses = ", ".join(f"{k} {v}" for k, v in sorted(result.status_counts.items()))
+    _log(f"{result.rows} rows in {result.seconds:.1f} s ({statuses})"
+         + (f"; resumed {result.resumed_chunks} finished chunk(s)" if result.resumed_chunks else ""))
+    click.echo(f"molecules: {result.output}" + (f"\nsites:     {result.sites}" if result.sites else ""))
+
+
 @main.command("run")
 @click.option("-o", "--out", "out_dir", type=click.Path(file_okay=False), help="Output folder (default: the config's output_dir).")
 @extra_option
@@ -118,14 +207,14 @@ def curate_cmd(out_dir, fmt, extra, extra_only, mirror, cache, config, sets):
 @_fail_cleanly
 def run_cmd(out_dir, extra, mirror, cache, config, sets):
     """The main job end to end on the config (default: built-in defaults)."""
-    from .workflow import curate_step, pull_step
+    from .workflow import train_step
     cfg = _resolve_config(config, sets, **{"data.extra": list(extra) or None, "output_dir": out_dir})
     out = Path(cfg.output_dir)
-    _log("step 1/2 pull")
-    files = pull_step(cfg, cache=cache, mirror=mirror, log=_log)
-    _log("step 2/2 curate")
-    cur = curate_step(cfg, files, out / "curated", log=_log)
-    click.echo(f"curated measurements: {cur.measurements}")
+    _log("step 1/2 pull + curate")
+    cur = _curated(cfg, cache, mirror, out)
+    _log("step 2/2 train")
+    result = train_step(cfg, cur.result.measurements, out / "train", extra_artifacts=[cur.summary], log=_log)
+    click.echo(f"curated measurements: {cur.measurements}\nmodel bundle:         {result.bundle}")
 
 
 def _register_commands() -> None:

@@ -84,12 +84,68 @@ class CurationConfig(_Strict):
         return self
 
 
+class FeaturesConfig(_Strict):
+    radii: list[int] = Field(default_factory=lambda: [1, 2, 3])
+    n_bits: int = 256
+    mol_fp_bits: int = 512
+    mol_fp_radius: int = 2
+    use_counts: bool = True
+
+
+class ModelConfig(_Strict):
+    per_kind: bool = True
+    n_estimators: int = 700
+    learning_rate: float = 0.04
+    num_leaves: int = 48
+    min_child_samples: int = 8
+    colsample_bytree: float = 0.4
+    subsample: float = 0.8
+    reg_lambda: float = 1.0
+    n_jobs: int = 2
+    assignment_rounds: int = 3       # label re-assignment rounds (0: keep catalog priors)
+    assignment_margin: float = 1.0   # a label moves only to a site predicted stronger by more than this
+    assignment_tolerance: float = 2.0  # sites predicted (or, by prior, ranged) this close to the value compete
+
+
+class CVConfig(_Strict):
+    folds: int = 5
+    schemes: list[Literal["molecule", "scaffold", "site_type"]] = Field(
+        default_factory=lambda: ["molecule", "scaffold", "site_type"])
+    site_type_min_count: int = 25    # leave-one-site-type-out only for types with this many labels
+    bootstrap: int = 1000
+    baselines: bool = True
+
+
+class DomainConfig(_Strict):
+    target_rmse: float = 1.0         # in-domain predictions should meet this CV error
+    min_type_support: int = 10
+    interval_levels: list[float] = Field(default_factory=lambda: [0.8, 0.9])
+
+
+class TrainConfig(_Strict):
+    fit_splits: list[str] | None = None     # e.g. [train]: fit only on these file splits
+    eval_splits: list[str] | None = None    # e.g. [test]: evaluate once on these
+
+
+class MlflowConfig(_Strict):
+    enabled: bool = True
+    tracking_uri: str = "sqlite:///mlflow.db"
+    registered_model: str = "pkasite-site-model"
+    register_model: bool = True
+
+
 class RunConfig(_Strict):
     name: str = "default"
     seed: int = 42
     output_dir: str = "pkasite-out"
     data: DataConfig = Field(default_factory=DataConfig)
     curation: CurationConfig = Field(default_factory=CurationConfig)
+    features: FeaturesConfig = Field(default_factory=FeaturesConfig)
+    model: ModelConfig = Field(default_factory=ModelConfig)
+    cv: CVConfig = Field(default_factory=CVConfig)
+    domain: DomainConfig = Field(default_factory=DomainConfig)
+    train: TrainConfig = Field(default_factory=TrainConfig)
+    mlflow: MlflowConfig = Field(default_factory=MlflowConfig)
 
     def with_overrides(self, overrides: dict[str, Any]) -> "RunConfig":
         """Return a copy with dotted keys (``"data.extra"``) replaced, validated again."""

@@ -5,10 +5,13 @@ explicit paths and returns what it produced.
 """
 from __future__ import annotations
 
+import hashlib
+import time
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
 
+import numpy as np
 import pandas as pd
 
 from .config import Registry, RunConfig, load_registry
@@ -71,3 +74,127 @@ def curate_step(cfg: RunConfig, files: list[PulledFile], out_dir: Path, fmt: str
     s = write_json(result.summary, out_dir / "curation_summary.json")
     log(format_summary(result.summary))
     return CurateOutputs(result, m, r, s)
+
+
+# ----------------------------------------------------------------------------- train
+
+@dataclass
+class TrainOutputs:
+    bundle: Path
+    cv_metrics: Path
+    cv_predictions: Path
+    metrics: dict
+    mlflow: dict | None
+
+
+def dataset_sha256(measurements: pd.DataFrame) -> str:
+    cols = ["smiles", "kind", "pka", "site_atom", "split"]
+    body = measurements[cols].sort_values(cols[:3]).to_csv(index=False).encode()
+    return hashlib.sha256(body).hexdigest()
+
+
+def _card(cfg: RunConfig, registry: Registry, measurements: pd.DataFrame, n_molecules: int, cv_summary: list,
+          heldout: dict | None, domain: dict, coverage: dict, code: str) -> dict:
+    used = sorted({s for v in measurements["source"] for s in str(v).split(";") if s})
+    sources, non_commercial = [], []
+    for name in used:
+        if name in registry.sources:
+            src = registry.sources[name]
+            sources.append({"name": name, "licence": src.licence, "citation": " ".join(src.citation.split())})
+            if not src.commercial_use:
+                non_commercial.append(name)
+        else:
+            sources.append({"name": name, "licence": "in-house (owner's terms)", "citation": "user-supplied file"})
+    return {
+        "name": f"pkasite site model ({cfg.name})", "created": time.strftime("%Y-%m-%d %H:%M:%S"), "code_version": code,
+        "intended_use": "Estimating aqueous pKa of ionizable sites of drug-like organic molecules at 20-30 C, "
+                        "to rank and triage compounds; not a substitute for measurement.",
+        "sources": sources, "non_commercial": bool(non_commercial), "non_commercial_sources": non_commercial,
+        "n_measurements": int(len(measurements)), "n_molecules": n_molecules,
+        "dataset_sha256": dataset_sha256(measurements), "cv_summary": cv_summary, "heldout": heldout or {},
+        "interval_coverage": coverage,
+        "domain_note": (f"A site is in domain when the Tanimoto similarity of its neighbourhood fingerprint to the "
+                        f"nearest training site of its kind is at least {domain['threshold']:.2f} (calibrated so that "
+                        f"in-domain CV RMSE <= {domain['target_rmse']}) and its site type has at least "
+                        f"{domain['min_type_support']} training examples. Intervals are split-conformal from "
+                        f"molecule-grouped CV residuals by similarity bin; observed coverage: "
+                        + ", ".join(f"{k} {v:.2f}" for k, v in coverage.items()) + "."),
+        "limitations": ["Sites are treated as independent when macroscopic constants and charge are derived; "
+                        "interactions between nearby sites (e.g. the second constant of a diacid) are not modelled.",
+                        "Training labels are molecule-level constants attached to one site; other sites of a "
+                        "molecule are learned only through similar molecules.",
+                        "Tautomers are predicted as drawn."],
+    }
+
+
+def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_artifacts: list[Path] = (),
+               registry: Registry | None = None, log: Log = _quiet) -> TrainOutputs:
+    """Site table -> features -> label re-assignment -> 3-scheme CV -> final model bundle -> MLflow."""
+    from pkasite.features.sites import load_catalog
+    from pkasite.models.calibration import ConformalCalibrator
+    from pkasite.models.domain import similarity_bin
+
+    from . import train as T
+    from .bundle import ModelBundle, save_bundle
+    from .tables import write_table
+    from .tracking import code_version, log_training_run
+
+    registry = registry or load_registry()
+    t0 = time.monotonic()
+    out_dir = Path(out_dir)
+    fit_meas = T.split_filter(measurements, cfg.train.fit_splits)
+    prep = T.prepare(fit_meas, cfg, log)
+    moved = T.reassign_labels(prep, cfg, log)
+    cv = T.cross_validate(prep, cfg, log)
+    threshold = T.domain_threshold(cv.residuals, cfg.domain.target_rmse)
+    coverage = T.interval_coverage(cv.residuals, cfg.domain.interval_levels, cfg.seed, cfg.cv.folds)
+    res = cv.residuals.dropna(subset=["similarity"])
+    calibrator = ConformalCalibrator(levels=tuple(cfg.domain.interval_levels)).fit(
+        res["residual"].to_numpy(), similarity_bin(res["similarity"].to_numpy()))
+    final = T.fit_regressor(prep, np.arange(len(prep.table.molecules)), cfg)
+    lab = prep.sites["labeled"].to_numpy()
+    kinds = prep.sites["kind"].to_numpy()
+    support = prep.sites[lab].groupby(["kind", "site_type"]).size()
+    domain = {"threshold": threshold, "target_rmse": cfg.domain.target_rmse,
+              "min_type_support": cfg.domain.min_type_support,
+              "type_support": {k: {t: int(n) for (kk, t), n in support.items() if kk == k} for k in ("acid", "base")},
+              "elements": T.elements_seen(prep.table.mols),
+              "max_heavy_atoms": int(T.heavy_atom_counts(prep.table.mols).max())}
+    heldout = None
+    if cfg.train.eval_splits:
+        heldout = T.evaluate_holdout(final, T.split_filter(measurements, cfg.train.eval_splits), cfg, prep)
+        log("held-out: " + ", ".join(f"RMSE {k} {heldout[f'test_rmse_{k}']:.2f} (Morgan baseline "
+                                     f"{heldout[f'test_baseline_mol_morgan_rmse_{k}']:.2f})" for k in ("acid", "base")
+                                     if f"test_rmse_{k}" in heldout))
+    main_rows = cv.metrics[cv.metrics["subset"].isin(["overall", "kind:acid", "kind:base"])]
+    card = _card(cfg, registry, fit_meas, len(prep.table.molecules),
+                 main_rows.to_dict("records"), heldout, domain, coverage, code_version())
+    card["assignment"] = {**prep.table.assignment_stats(), "moved_per_round": moved}
+    bundle = ModelBundle(final, prep.settings, prep.site_types, load_catalog().version, calibrator, domain,
+                         {k: prep.bits[lab & (kinds == k)] for k in ("acid", "base")}, card, cv.residuals)
+    bundle_path = save_bundle(bundle, out_dir / "model")
+    cv_metrics = write_table(cv.metrics, out_dir / "cv_metrics.csv")
+    cv_preds = write_table(cv.predictions, out_dir / "cv_predictions.parquet")
+    summary_path = write_json({"assignment": card["assignment"], "cv_seconds": cv.seconds,
+                               "interval_coverage": coverage, "domain_threshold": threshold, "heldout": heldout},
+                              out_dir / "train_summary.json")
+    metrics = {}
+    for r in cv.metrics.itertuples():
+        subset = r.subset.replace("kind:", "").replace("type:", "type_")
+        for m in ("rmse", "mae", "r2", "within_1", "within_2"):
+            metrics[f"cv_{r.scheme}_{r.model}_{subset}_{m}"] = getattr(r, m)
+    metrics.update({f"interval_{k}": v for k, v in coverage.items()})
+    metrics["domain_threshold"] = threshold
+    metrics.update({f"labels_moved_round{i + 1}": v for i, v in enumerate(moved)})
+    if heldout:
+        metrics.update({k: v for k, v in heldout.items() if isinstance(v, (int, float))})
+    metrics["train_seconds"] = time.monotonic() - t0
+    log(f"training finished in {metrics['train_seconds']:.0f} s; bundle {bundle_path}")
+    tracked = None
+    if cfg.mlflow.enabled:
+        example = pd.DataFrame({"id": ["example-1", "example-2"], "smiles": ["OC(=O)c1ccccc1", "CN1CCCCC1"]})
+        tracked = log_training_run(cfg, metrics, [cv_metrics, cv_preds, summary_path, *extra_artifacts],
+                                   bundle_path, {"dataset_sha256": card["dataset_sha256"], "code_version": card["code_version"]},
+                                   example)
+        log(f"mlflow run {tracked['run_id']}; registered version {tracked['version']} (alias candidate)")
+    return TrainOutputs(bundle_path, cv_metrics, cv_preds, metrics, tracked)

@@ -1,0 +1,137 @@
+"""Model bundle: a folder holding everything prediction needs, each file sha256-checked on load.
+
+No pickles: boosters are LightGBM text models, arrays are ``.npz`` read with
+``allow_pickle=False``, tables are parquet, the rest is JSON.
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import shutil
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from pkasite.features.site_features import FeatureSettings
+from pkasite.models.calibration import ConformalCalibrator
+from pkasite.models.regressor import SiteRegressor
+
+BUNDLE_FORMAT = 1
+MANIFEST = "manifest.json"
+
+
+class BundleError(ValueError):
+    """A bundle that is missing, incomplete or altered; the message names the file."""
+
+
+@dataclass
+class ModelBundle:
+    regressor: SiteRegressor
+    settings: FeatureSettings
+    site_types: list[str]
+    catalog_version: str
+    calibrator: ConformalCalibrator
+    domain: dict          # threshold, type_support, elements, max_heavy_atoms, min_type_support
+    train_bits: dict      # kind -> uint8 matrix of training-site neighbourhood bits
+    card: dict
+    residuals: pd.DataFrame
+    path: Path | None = None
+
+
+def _sha256(path: Path) -> str:
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+def save_bundle(bundle: ModelBundle, target: Path) -> Path:
+    """Write the bundle folder atomically (a temporary folder renamed into place)."""
+    target = Path(target)
+    target.parent.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.", dir=target.parent))
+    try:
+        for key, text in bundle.regressor.to_strings().items():
+            (tmp / f"booster_{key}.txt").write_text(text)
+        config = {"format": BUNDLE_FORMAT, "per_kind": bundle.regressor.per_kind, "seed": bundle.regressor.seed,
+                  "features": bundle.settings.to_dict(), "site_types": bundle.site_types,
+                  "catalog_version": bundle.catalog_version, "calibrator": bundle.calibrator.to_dict(),
+                  "domain": bundle.domain}
+        (tmp / "config.json").write_text(json.dumps(config, indent=2, sort_keys=True))
+        np.savez_compressed(tmp / "train_bits.npz",
+                            **{k: np.packbits(v.astype(bool), axis=1) for k, v in bundle.train_bits.items()},
+                            **{f"{k}__width": np.array([v.shape[1]]) for k, v in bundle.train_bits.items()})
+        bundle.residuals.to_parquet(tmp / "cv_residuals.parquet", index=False)
+        (tmp / "model_card.json").write_text(json.dumps(bundle.card, indent=2, sort_keys=True, default=str))
+        (tmp / "model_card.md").write_text(render_model_card(bundle.card))
+        files = {p.name: _sha256(p) for p in sorted(tmp.iterdir())}
+        (tmp / MANIFEST).write_text(json.dumps({"format": BUNDLE_FORMAT, "files": files}, indent=2, sort_keys=True))
+        if target.exists():
+            shutil.rmtree(target)
+        os.replace(tmp, target)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    return target
+
+
+def verify_bundle(path: Path) -> dict:
+    """Check every file against the manifest; return the manifest."""
+    path = Path(path)
+    manifest_path = path / MANIFEST
+    if not manifest_path.is_file():
+        raise BundleError(f"{path}: not a model bundle (no {MANIFEST})")
+    manifest = json.loads(manifest_path.read_text())
+    if manifest.get("format") != BUNDLE_FORMAT:
+        raise BundleError(f"{path}: bundle format {manifest.get('format')} is not {BUNDLE_FORMAT}")
+    for name, digest in manifest["files"].items():
+        f = path / name
+        if not f.is_file():
+            raise BundleError(f"{path}: file {name} listed in the manifest is missing")
+        if _sha256(f) != digest:
+            raise BundleError(f"{path}: file {name} does not match its sha256 in the manifest "
+                              "(the bundle was altered; retrain or restore it)")
+    return manifest
+
+
+def load_bundle(path: Path) -> ModelBundle:
+    path = Path(path)
+    verify_bundle(path)
+    config = json.loads((path / "config.json").read_text())
+    boosters = {p.stem.removeprefix("booster_"): p.read_text() for p in sorted(path.glob("booster_*.txt"))}
+    reg = SiteRegressor.from_strings(boosters, per_kind=config["per_kind"], seed=config["seed"])
+    with np.load(path / "train_bits.npz", allow_pickle=False) as npz:
+        kinds = [k for k in npz.files if not k.endswith("__width")]
+        bits = {k: np.unpackbits(npz[k], axis=1)[:, : int(npz[f"{k}__width"][0])] for k in kinds}
+    return ModelBundle(
+        regressor=reg, settings=FeatureSettings.from_dict(config["features"]), site_types=config["site_types"],
+        catalog_version=str(config["catalog_version"]), calibrator=ConformalCalibrator.from_dict(config["calibrator"]),
+        domain=config["domain"], train_bits=bits, card=json.loads((path / "model_card.json").read_text()),
+        residuals=pd.read_parquet(path / "cv_residuals.parquet"), path=path)
+
+
+def render_model_card(card: dict) -> str:
+    """The model card as Markdown."""
+    lines = [f"# Model card: {card.get('name', 'pkasite site model')}", ""]
+    if card.get("non_commercial"):
+        lines += ["> **NON-COMMERCIAL USE ONLY.** This model was trained on data licensed for non-commercial",
+                  "> use (" + ", ".join(card.get("non_commercial_sources", [])) + ").", ""]
+    lines += ["Predicted pKa values are estimates, not a substitute for measurement.", "",
+              "## Intended use", "", card.get("intended_use", ""), "", "## Training data", ""]
+    for src in card.get("sources", []):
+        lines.append(f"- **{src['name']}** ({src['licence']}): {src['citation']}")
+    lines += ["", f"Measurements: {card.get('n_measurements')}; molecules with a site: {card.get('n_molecules')}; "
+              f"dataset sha256: `{card.get('dataset_sha256')}`", "", "## Cross-validation (molecule level)", "",
+              "| scheme | model | subset | n | RMSE | 95% CI | MAE | R2 |", "|---|---|---|---|---|---|---|---|"]
+    for row in card.get("cv_summary", []):
+        lines.append(f"| {row['scheme']} | {row['model']} | {row['subset']} | {row['n']} | {row['rmse']:.2f} | "
+                     f"{row.get('rmse_low', float('nan')):.2f}-{row.get('rmse_high', float('nan')):.2f} | "
+                     f"{row['mae']:.2f} | {row['r2']:.2f} |")
+    if card.get("heldout"):
+        lines += ["", "## Held-out evaluation", ""] + [f"- {k}: {v:.3f}" if isinstance(v, float) else f"- {k}: {v}"
+                                                          for k, v in sorted(card["heldout"].items())]
+    lines += ["", "## Applicability domain and intervals", "", card.get("domain_note", ""), "",
+              "## Limitations", ""] + [f"- {x}" for x in card.get("limitations", [])]
+    lines += ["", "## Environment", "", f"code version {card.get('code_version')}, created {card.get('created')}", ""]
+    return "\n".join(lines)

@@ -1,0 +1,389 @@
+"""Training: site table -> features -> label re-assignment -> cross-validation -> final bundle.
+
+Evaluation is at molecule level, where the measurement lives: the prediction for
+an acid constant is the lowest predicted pKa among the molecule's acid sites,
+for a base constant the highest among its base sites.  That makes the figures
+independent of which site a label was attached to and directly comparable with
+a molecule-level baseline evaluated on the same folds.
+"""
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+import pandas as pd
+from rdkit import Chem
+
+from pkasite.features.fingerprints import mol_fingerprint_counts, site_neighbourhood_bits
+from pkasite.features.site_features import FeatureSettings
+from pkasite.features.sites import load_catalog
+from pkasite.models.calibration import ConformalCalibrator
+from pkasite.models.domain import similarity_bin, tanimoto_max
+from pkasite.models.metrics import bootstrap_metrics, point_metrics
+from pkasite.models.regressor import BoosterParams, SiteRegressor
+from pkasite.models.splits import group_kfold, leave_one_group_out, murcko_scaffold
+
+from .config import RunConfig
+from .sitetable import SiteTable, build_site_table, site_matrix
+
+Log = Callable[[str], None]
+BASELINES = ("type_median", "mol_morgan")
+
+
+def feature_settings(cfg: RunConfig) -> FeatureSettings:
+    f = cfg.features
+    return FeatureSettings(radii=tuple(f.radii), n_bits=f.n_bits, mol_fp_bits=f.mol_fp_bits,
+                           mol_fp_radius=f.mol_fp_radius, use_counts=f.use_counts)
+
+
+def booster_params(cfg: RunConfig) -> BoosterParams:
+    m = cfg.model
+    return BoosterParams(n_estimators=m.n_estimators, learning_rate=m.learning_rate, num_leaves=m.num_leaves,
+                         min_child_samples=m.min_child_samples, colsample_bytree=m.colsample_bytree,
+                         subsample=m.subsample, reg_lambda=m.reg_lambda, n_jobs=m.n_jobs)
+
+
+@dataclass
+class Prepared:
+    """Everything computed once per training set and reused by every fit."""
+
+    table: SiteTable
+    X: np.ndarray                 # site features, one row per candidate site
+    bits: np.ndarray              # site neighbourhood bits (applicability domain)
+    mol_X: np.ndarray             # molecule Morgan counts (baseline)
+    site_types: list[str]
+    settings: FeatureSettings
+
+    @property
+    def sites(self) -> pd.DataFrame:
+        return self.table.sites
+
+
+def prepare(measurements: pd.DataFrame, cfg: RunConfig, log: Log = lambda m: None) -> Prepared:
+    t0 = time.monotonic()
+    table = build_site_table(measurements)
+    settings = feature_settings(cfg)
+    site_types = [t.name for t in load_catalog().types]
+    X = site_matrix(table, settings, site_types)
+    bits = np.stack([site_neighbourhood_bits(table.mols[m], int(a)) for m, a in
+                     table.sites[["mol_id", "atom"]].itertuples(index=False)]) if len(table.sites) else np.zeros((0, 1024), np.uint8)
+    mol_X = np.stack([mol_fingerprint_counts(m, 2, 2048) for m in table.mols])
+    log(f"site table: {len(table.molecules)} molecules, {len(table.sites)} candidate sites, "
+        f"{len(table.rejects)} without a site of their kind ({time.monotonic() - t0:.1f} s)")
+    return Prepared(table, X, bits, mol_X, site_types, settings)
+
+
+# ----------------------------------------------------------------------------- molecule-level reduction
+
+def molecule_predictions(sites: pd.DataFrame, site_pred: np.ndarray) -> np.ndarray:
+    """Per mol_id: min site prediction for acids, max for bases (NaN where no prediction)."""
+    df = pd.DataFrame({"mol_id": sites["mol_id"].to_numpy(), "kind": sites["kind"].to_numpy(), "p": site_pred})
+    acid = df[df["kind"] == "acid"].groupby("mol_id")["p"].min()
+    base = df[df["kind"] == "base"].groupby("mol_id")["p"].max()
+    n = int(sites["mol_id"].max()) + 1 if len(sites) else 0
+    out = np.full(n, np.nan)
+    out[acid.index.to_numpy()] = acid.to_numpy()
+    out[base.index.to_numpy()] = base.to_numpy()
+    return out
+
+
+def labeled_site_predictions(sites: pd.DataFrame, site_pred: np.ndarray) -> np.ndarray:
+    """Per mol_id: the prediction at the site carrying the molecule's label."""
+    lab = sites["labeled"].to_numpy()
+    out = np.full(int(sites["mol_id"].max()) + 1 if len(sites) else 0, np.nan)
+    out[sites["mol_id"].to_numpy()[lab]] = site_pred[lab]
+    return out
+
+
+def _labels(prep: Prepared) -> pd.DataFrame:
+    """One row per molecule: its label, kind and labeled site type."""
+    lab = prep.sites[prep.sites["labeled"]].sort_values("mol_id")
+    return lab[["mol_id", "label", "kind", "site_type", "inchikey", "smiles", "record_id"]].reset_index(drop=True)
+
+
+# ----------------------------------------------------------------------------- folds
+
+def make_splits(prep: Prepared, scheme: str, cfg: RunConfig) -> list[tuple[str, np.ndarray, np.ndarray]]:
+    """Splits over mol_id: (name, train mol_ids, test mol_ids)."""
+    mols = _labels(prep)
+    ids = mols["mol_id"].to_numpy()
+    if scheme == "molecule":
+        groups = mols["inchikey"].str[:14].to_numpy()  # connectivity layer: tautomers/charges stay together
+        return [(f"fold{i}", ids[tr], ids[te]) for i, (tr, te) in enumerate(group_kfold(groups, cfg.cv.folds, cfg.seed))]
+    if scheme == "scaffold":
+        groups = np.array([murcko_scaffold(s) for s in mols["smiles"]])
+        return [(f"fold{i}", ids[tr], ids[te]) for i, (tr, te) in enumerate(group_kfold(groups, cfg.cv.folds, cfg.seed))]
+    if scheme == "site_type":
+        return [(name, ids[tr], ids[te]) for name, tr, te in
+                leave_one_group_out(mols["site_type"].to_numpy(), cfg.cv.site_type_min_count)]
+    raise ValueError(f"unknown CV scheme {scheme!r}")
+
+
+# ----------------------------------------------------------------------------- fitting
+
+def fit_regressor(prep: Prepared, train_mols: np.ndarray, cfg: RunConfig) -> SiteRegressor:
+    sites = prep.sites
+    rows = np.flatnonzero(sites["labeled"].to_numpy() & np.isin(sites["mol_id"].to_numpy(), train_mols))
+    reg = SiteRegressor(params=booster_params(cfg), per_kind=cfg.model.per_kind, seed=cfg.seed)
+    return reg.fit(prep.X[rows], sites["label"].to_numpy()[rows], sites["kind"].to_numpy()[rows])
+
+
+def oof_site_predictions(prep: Prepared, splits, cfg: RunConfig, with_similarity: bool = False):
+    """Out-of-fold predictions for every candidate site of each test molecule."""
+    sites = prep.sites
+    mol_of_row = sites["mol_id"].to_numpy()
+    pred = np.full(len(sites), np.nan)
+    fold = np.full(len(sites), "", dtype=object)
+    sim = np.full(len(sites), np.nan)
+    for name, tr, te in splits:
+        reg = fit_regressor(prep, tr, cfg)
+        rows = np.flatnonzero(np.isin(mol_of_row, te))
+        pred[rows] = reg.predict(prep.X[rows], sites["kind"].to_numpy()[rows])
+        fold[rows] = name
+        if with_similarity:
+            train_rows = np.flatnonzero(sites["labeled"].to_numpy() & np.isin(mol_of_row, tr))
+            for kind in ("acid", "base"):
+                q = rows[sites["kind"].to_numpy()[rows] == kind]
+                t = train_rows[sites["kind"].to_numpy()[train_rows] == kind]
+                if len(q):
+                    sim[q] = tanimoto_max(prep.bits[q], prep.bits[t])
+    return pred, fold, sim
+
+
+def reassign_labels(prep: Prepared, cfg: RunConfig, log: Log) -> list[int]:
+    """Re-attach labels using out-of-fold predictions; repeat until no label moves.
+
+    Each molecule's value goes to the most acidic (acid) or most basic (base) site among
+    those predicted within ``model.assignment_tolerance`` of it (:func:`assign_site`).  A
+    label moves only when its current site is no longer consistent with the value or the
+    new site is stronger by more than ``model.assignment_margin``, so near-ties do not flip
+    back and forth.  Explicit site atoms never move.
+    """
+    from pkasite.features.sites import Site, assign_site, load_catalog
+
+    catalog = load_catalog()
+    sites = prep.table.sites
+    splits = make_splits(prep, "molecule", cfg)
+    explicit = prep.table.molecules["site_atom"].notna().to_numpy()
+    moved_per_round = []
+    for rnd in range(cfg.model.assignment_rounds):
+        pred, _, _ = oof_site_predictions(prep, splits, cfg)
+        labeled = sites["labeled"].to_numpy().copy()
+        confidence = sites["confidence"].to_numpy().copy()
+        moved = 0
+        for mol_id, rows in sites.groupby("mol_id").indices.items():
+            if len(rows) == 1 or explicit[mol_id]:
+                continue
+            cand = [Site(int(sites["atom"].iat[r]), sites["site_type"].iat[r], sites["kind"].iat[r],
+                         float(sites["prior"].iat[r])) for r in rows]
+            kind, label = cand[0].kind, float(sites["label"].iat[rows[0]])
+            p = {c.atom: float(pred[r]) for c, r in zip(cand, rows)}
+            new = assign_site(prep.table.mols[mol_id], kind, sites=cand, predicted=p, value=label,
+                              tolerance=cfg.model.assignment_tolerance, catalog=catalog)
+            cur_row = rows[labeled[rows]][0]
+            cur_atom = int(sites["atom"].iat[cur_row])
+            sign = 1.0 if kind == "acid" else -1.0
+            stronger = sign * (p[cur_atom] - p[new.atom]) > cfg.model.assignment_margin
+            consistent = abs(p[cur_atom] - label) <= cfg.model.assignment_tolerance
+            if new.atom != cur_atom and (stronger or not consistent):
+                labeled[rows] = sites["atom"].to_numpy()[rows] == new.atom
+                moved += 1
+            confidence[rows] = new.confidence
+        sites["labeled"] = labeled
+        sites["confidence"] = confidence
+        moved_per_round.append(moved)
+        log(f"label re-assignment round {rnd + 1}: {moved} labels moved")
+        if moved == 0:
+            break
+    return moved_per_round
+
+
+# ----------------------------------------------------------------------------- baselines
+
+def type_median_predictions(prep: Prepared, splits) -> np.ndarray:
+    """Baseline: each site gets the training-fold median label of its site type (catalog prior if unseen)."""
+    sites = prep.sites
+    pred = np.full(len(sites), np.nan)
+    mol_of_row = sites["mol_id"].to_numpy()
+    for _, tr, te in splits:
+        lab = sites[sites["labeled"] & np.isin(mol_of_row, tr)]
+        med = lab.groupby(["kind", "site_type"])["label"].median()
+        rows = np.flatnonzero(np.isin(mol_of_row, te))
+        keys = list(zip(sites["kind"].to_numpy()[rows], sites["site_type"].to_numpy()[rows]))
+        pred[rows] = [med.get(k, p) for k, p in zip(keys, sites["prior"].to_numpy()[rows])]
+    return pred
+
+
+def morgan_baseline_predictions(prep: Prepared, splits, cfg: RunConfig) -> np.ndarray:
+    """Baseline: molecule-level LightGBM on Morgan counts, per kind, same folds (per mol_id)."""
+    mols = _labels(prep)
+    n = int(mols["mol_id"].max()) + 1
+    y = np.full(n, np.nan)
+    kinds = np.empty(n, dtype=object)
+    y[mols["mol_id"]] = mols["label"]
+    kinds[mols["mol_id"]] = mols["kind"]
+    out = np.full(n, np.nan)
+    for _, tr, te in splits:
+        reg = SiteRegressor(params=booster_params(cfg), per_kind=True, seed=cfg.seed)
+        reg.fit(prep.mol_X[tr], y[tr], kinds[tr])
+        out[te] = reg.predict(prep.mol_X[te], kinds[te])
+    return out
+
+
+# ----------------------------------------------------------------------------- metrics
+
+def metric_table(mols: pd.DataFrame, pred_by_mol: dict[str, np.ndarray], cfg: RunConfig, scheme: str) -> pd.DataFrame:
+    """Rows: (scheme, model, subset) with bootstrap intervals; subsets overall, per kind, per site type."""
+    rows = []
+    y = mols["label"].to_numpy()
+    ids = mols["mol_id"].to_numpy()
+    subsets = [("overall", np.ones(len(mols), bool))]
+    subsets += [(f"kind:{k}", (mols["kind"] == k).to_numpy()) for k in ("acid", "base")]
+    subsets += [(f"type:{t}", (mols["site_type"] == t).to_numpy()) for t in sorted(mols["site_type"].unique())]
+    for model, pred in pred_by_mol.items():
+        p = pred[ids]
+        for name, mask in subsets:
+            mask = mask & ~np.isnan(p)
+            if mask.sum() < 2:
+                continue
+            boot = cfg.cv.bootstrap if not name.startswith("type:") else min(cfg.cv.bootstrap, 200)
+            m = bootstrap_metrics(y[mask], p[mask], n_boot=boot, seed=cfg.seed)
+            rows.append({"scheme": scheme, "model": model, "subset": name, **m})
+    return pd.DataFrame(rows)
+
+
+@dataclass
+class CVResult:
+    metrics: pd.DataFrame
+    predictions: pd.DataFrame        # one row per (scheme, molecule) with every model's prediction
+    residuals: pd.DataFrame          # molecule-scheme OOF labeled-site rows: kind, site_type, similarity, residual
+    moved_per_round: list[int] = field(default_factory=list)
+    seconds: dict = field(default_factory=dict)
+
+
+def cross_validate(prep: Prepared, cfg: RunConfig, log: Log = lambda m: None) -> CVResult:
+    mols = _labels(prep)
+    tables, preds, residuals, seconds = [], [], None, {}
+    for scheme in cfg.cv.schemes:
+        t0 = time.monotonic()
+        splits = make_splits(prep, scheme, cfg)
+        site_pred, fold, sim = oof_site_predictions(prep, splits, cfg, with_similarity=(scheme == "molecule"))
+        by_model = {"site_model": labeled_site_predictions(prep.sites, site_pred),
+                    "site_model_strongest": molecule_predictions(prep.sites, site_pred)}
+        if cfg.cv.baselines:
+            by_model["type_median"] = labeled_site_predictions(prep.sites, type_median_predictions(prep, splits))
+            by_model["mol_morgan"] = morgan_baseline_predictions(prep, splits, cfg)
+        tested = np.unique(np.concatenate([te for _, _, te in splits]))
+        sub = mols[mols["mol_id"].isin(tested)]
+        tables.append(metric_table(sub, by_model, cfg, scheme))
+        fold_of_mol = pd.Series(fold, index=prep.sites["mol_id"]).groupby(level=0).first()
+        p = sub.assign(scheme=scheme, fold=fold_of_mol.reindex(sub["mol_id"]).to_numpy(),
+                       **{f"pred_{k}": v[sub["mol_id"].to_numpy()] for k, v in by_model.items()})
+        preds.append(p)
+        if scheme == "molecule":
+            lab = prep.sites["labeled"].to_numpy()
+            residuals = pd.DataFrame({
+                "mol_id": prep.sites["mol_id"].to_numpy()[lab], "kind": prep.sites["kind"].to_numpy()[lab],
+                "site_type": prep.sites["site_type"].to_numpy()[lab], "similarity": sim[lab],
+                "label": prep.sites["label"].to_numpy()[lab], "pred": site_pred[lab]})
+            residuals["residual"] = residuals["pred"] - residuals["label"]
+        seconds[scheme] = round(time.monotonic() - t0, 1)
+        ov = tables[-1]
+        ov = ov[ov["subset"] == "overall"].set_index("model")["rmse"]
+        log(f"cv {scheme}: " + ", ".join(f"{k} RMSE {v:.2f}" for k, v in ov.items()) + f" ({seconds[scheme]} s)")
+    return CVResult(pd.concat(tables, ignore_index=True), pd.concat(preds, ignore_index=True), residuals,
+                    seconds=seconds)
+
+
+# ----------------------------------------------------------------------------- domain and intervals
+
+def domain_threshold(residuals: pd.DataFrame, target_rmse: float) -> float:
+    """Lowest similarity threshold at which the CV RMSE of the sites at or above it meets the target."""
+    r = residuals.dropna(subset=["similarity"]).sort_values("similarity", ascending=False)
+    if r.empty:
+        return 1.0
+    sq = np.cumsum(r["residual"].to_numpy() ** 2)
+    rmse = np.sqrt(sq / np.arange(1, len(r) + 1))
+    ok = np.flatnonzero((rmse <= target_rmse) & (np.arange(1, len(r) + 1) >= 30))
+    if not len(ok):
+        return 1.0
+    return float(r["similarity"].to_numpy()[ok.max()])
+
+
+def interval_coverage(residuals: pd.DataFrame, levels, seed: int, folds: int = 5) -> dict:
+    """Observed coverage of conformal intervals on held-out folds of the CV residuals."""
+    res = residuals.dropna(subset=["similarity"]).reset_index(drop=True)
+    bins = similarity_bin(res["similarity"].to_numpy())
+    out = {}
+    for lv in levels:
+        covered = np.zeros(len(res), bool)
+        for tr, te in group_kfold(res["mol_id"].to_numpy(), folds, seed):
+            cal = ConformalCalibrator(levels=tuple(levels)).fit(res["residual"].to_numpy()[tr], bins[tr])
+            covered[te] = np.abs(res["residual"].to_numpy()[te]) <= cal.half_width(bins[te], lv)
+        out[f"coverage_{int(lv * 100)}"] = float(covered.mean())
+    return out
+
+
+# ----------------------------------------------------------------------------- evaluation on a held-out set
+
+def evaluate_holdout(reg: SiteRegressor, measurements: pd.DataFrame, cfg: RunConfig, train_prep: Prepared) -> dict:
+    """Metrics of a fitted model and the Morgan baseline on held-out measurements.
+
+    ``test_rmse_<kind>``: at the site the value is attached to (by the model's predictions and
+    the value, as in training); ``test_rmse_strongest_<kind>``: the most acidic/basic predicted
+    site against the value, which needs no attachment at all.
+    """
+    from pkasite.features.sites import Site, assign_site, load_catalog
+
+    prep = prepare(measurements, cfg)
+    kinds_arr = prep.sites["kind"].to_numpy()
+    site_pred = reg.predict(prep.X, kinds_arr)
+    catalog = load_catalog()
+    labeled = prep.sites["labeled"].to_numpy().copy()
+    for mol_id, rows in prep.sites.groupby("mol_id").indices.items():
+        if len(rows) == 1 or prep.table.molecules["site_atom"].notna().iat[mol_id]:
+            continue
+        cand = [Site(int(prep.sites["atom"].iat[r]), prep.sites["site_type"].iat[r], kinds_arr[r],
+                     float(prep.sites["prior"].iat[r])) for r in rows]
+        new = assign_site(prep.table.mols[mol_id], cand[0].kind, sites=cand,
+                          predicted={c.atom: float(site_pred[r]) for c, r in zip(cand, rows)},
+                          value=float(prep.sites["label"].iat[rows[0]]), tolerance=cfg.model.assignment_tolerance,
+                          catalog=catalog)
+        labeled[rows] = prep.sites["atom"].to_numpy()[rows] == new.atom
+    prep.sites["labeled"] = labeled
+    at_site = labeled_site_predictions(prep.sites, site_pred)
+    strongest = molecule_predictions(prep.sites, site_pred)
+    mols = _labels(prep)
+    tmols = _labels(train_prep)
+    base = SiteRegressor(params=booster_params(cfg), per_kind=True, seed=cfg.seed)
+    base.fit(train_prep.mol_X[tmols["mol_id"]], tmols["label"].to_numpy(), tmols["kind"].to_numpy())
+    base_pred = np.full(len(prep.mol_X), np.nan)
+    base_pred[mols["mol_id"]] = base.predict(prep.mol_X[mols["mol_id"]], mols["kind"].to_numpy())
+    out = {"n_heldout": int(len(measurements)), "n_heldout_no_site": int(len(prep.table.rejects))}
+    for kind in ("acid", "base"):
+        sel = mols[mols["kind"] == kind]
+        if len(sel) < 2:
+            continue
+        y, ids = sel["label"].to_numpy(), sel["mol_id"].to_numpy()
+        out.update({f"test_{k}_{kind}": v for k, v in point_metrics(y, at_site[ids]).items()})
+        out.update({f"test_{k}_strongest_{kind}": v for k, v in point_metrics(y, strongest[ids]).items()
+                    if k != "n"})
+        out.update({f"test_baseline_mol_morgan_{k}_{kind}": v for k, v in point_metrics(y, base_pred[ids]).items()
+                    if k != "n"})
+    return out
+
+
+def split_filter(measurements: pd.DataFrame, splits: list[str] | None) -> pd.DataFrame:
+    if splits is None:
+        return measurements
+    return measurements[measurements["split"].isin(splits)].reset_index(drop=True)
+
+
+def heavy_atom_counts(mols: list) -> np.ndarray:
+    return np.array([m.GetNumHeavyAtoms() for m in mols])
+
+
+def elements_seen(mols: list) -> list[str]:
+    return sorted({a.GetSymbol() for m in mols for a in m.GetAtoms()})

@@ -1,0 +1,107 @@
+"""Training on a small deterministic subset of the curated open data: CV schemes, bundle, MLflow."""
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from pkasite.pipeline.bundle import BundleError, load_bundle, verify_bundle
+from pkasite.pipeline.config import RunConfig, load_config
+
+pytestmark = pytest.mark.slow
+
+SMALL = {"model.n_estimators": 80, "model.learning_rate": 0.1, "model.assignment_rounds": 1, "cv.folds": 3,
+         "cv.site_type_min_count": 60, "cv.bootstrap": 50}
+
+
+def small_config(tmp_path, **extra) -> RunConfig:
+    return load_config().with_overrides({**SMALL, "name": "test-small",
+                                         "mlflow.tracking_uri": f"sqlite:///{tmp_path}/mlflow.db", **extra})
+
+
+@pytest.fixture(scope="session")
+def subset(curated) -> pd.DataFrame:
+    m = curated.result.measurements
+    return pd.concat([m[m["kind"] == k].sample(250, random_state=0) for k in ("acid", "base")], ignore_index=True)
+
+
+@pytest.fixture(scope="session")
+def trained(subset, tmp_path_factory):
+    from pkasite.pipeline.workflow import train_step
+    tmp = tmp_path_factory.mktemp("train")
+    cfg = small_config(tmp)
+    return cfg, tmp, train_step(cfg, subset, tmp / "out")
+
+
+def test_three_cv_schemes_with_baselines(trained):
+    cfg, _, out = trained
+    cv = pd.read_csv(out.cv_metrics)
+    overall = cv[cv["subset"] == "overall"].set_index(["scheme", "model"])["rmse"]
+    for scheme in ("molecule", "scaffold", "site_type"):
+        for model in ("site_model", "site_model_strongest", "type_median", "mol_morgan"):
+            assert (scheme, model) in overall.index
+    # the learned model must beat the site-type median prior on held-out molecules
+    assert overall[("molecule", "site_model")] < overall[("molecule", "type_median")]
+    assert {"rmse_low", "rmse_high", "within_1", "within_2", "r2", "mae"} <= set(cv.columns)
+    assert cv["subset"].str.startswith("type:").any() and {"kind:acid", "kind:base"} <= set(cv["subset"])
+
+
+def test_bundle_round_trip_and_tamper_check(trained, tmp_path):
+    _, _, out = trained
+    bundle = load_bundle(out.bundle)
+    card = json.loads((out.bundle / "model_card.json").read_text())
+    assert card["sources"][0]["licence"] == "CC-BY-4.0" and card["non_commercial"] is False
+    assert "estimates, not a substitute for measurement" in (out.bundle / "model_card.md").read_text()
+    assert 0 <= bundle.domain["threshold"] <= 1 and bundle.train_bits["acid"].shape[1] == 1024
+    import shutil
+    copy = tmp_path / "bundle"
+    shutil.copytree(out.bundle, copy)
+    verify_bundle(copy)
+    with open(copy / "booster_acid.txt", "a") as fh:
+        fh.write("\n")
+    with pytest.raises(BundleError, match="booster_acid.txt does not match its sha256"):
+        load_bundle(copy)
+
+
+def test_mlflow_run_registry_and_pyfunc(trained):
+    import mlflow
+    from mlflow.tracking import MlflowClient
+
+    from pkasite.pipeline.tracking import promote
+    cfg, tmp, out = trained
+    client = MlflowClient(tracking_uri=cfg.mlflow.tracking_uri)
+    run = client.get_run(out.mlflow["run_id"])
+    assert run.data.params["model.n_estimators"] == "80"
+    assert "cv_molecule_site_model_overall_rmse" in run.data.metrics
+    assert run.data.tags["dataset_sha256"] and run.data.tags["code_version"]
+    exp = client.get_experiment(run.info.experiment_id)
+    assert exp.name == "test-small"
+    artifacts = {a.path for a in client.list_artifacts(run.info.run_id)}
+    assert {"cv_metrics.csv", "cv_predictions.parquet", "train_summary.json"} <= artifacts
+    version = client.get_model_version_by_alias(cfg.mlflow.registered_model, "candidate")
+    assert int(version.version) == out.mlflow["version"]
+    promote(cfg.mlflow.tracking_uri, cfg.mlflow.registered_model, version.version)
+    assert client.get_model_version_by_alias(cfg.mlflow.registered_model, "production").version == version.version
+    with pytest.raises(ValueError, match="cannot promote"):
+        promote(cfg.mlflow.tracking_uri, cfg.mlflow.registered_model, "99")
+    mlflow.set_tracking_uri(cfg.mlflow.tracking_uri)
+    model = mlflow.pyfunc.load_model(f"models:/{cfg.mlflow.registered_model}@production")
+    got = model.predict(pd.DataFrame({"id": ["a", "b", "c"], "smiles": ["CC(=O)O", "C1CCNCC1", "not smiles"]}))
+    assert list(got["status"]) == ["ok", "ok", "unreadable_smiles"]
+    assert got.loc[0, "acid_pka"] < 7 and got.loc[1, "base_pka"] > 7
+
+
+def test_same_config_and_data_give_same_numbers(subset, tmp_path):
+    from pkasite.pipeline.workflow import train_step
+    cfg = small_config(tmp_path, **{"mlflow.enabled": False, "cv.schemes": ["molecule"], "cv.baselines": False})
+    a = train_step(cfg, subset, tmp_path / "a").metrics
+    b = train_step(cfg, subset, tmp_path / "b").metrics
+    keys = [k for k in a if k.startswith("cv_")]
+    assert keys and all(a[k] == b[k] or (np.isnan(a[k]) and np.isnan(b[k])) for k in keys)
+
+
+def test_default_yaml_matches_schema_defaults():
+    """configs/default.yaml states every default explicitly; it must agree with the schema."""
+    assert load_config().model_dump() == RunConfig().model_dump()
