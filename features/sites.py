@@ -373,12 +373,19 @@ def _distinct_candidates(mol: Chem.Mol, candidates: Sequence[Site]) -> list[Site
 
 def _consistent_with(sites: list[Site], value: float, tolerance: float, by_prediction: bool,
                      site_value, catalog: Catalog) -> list[Site]:
-    """The sites a measured value can belong to (see :func:`assign_site`); never empty."""
-    def gap(site: Site) -> float:
-        if by_prediction:
-            return abs(site_value(site) - value)
+    """The sites a measured value can belong to (see :func:`assign_site`); never empty.
+
+    A site qualifies when its type's catalog range, widened by ``tolerance``, holds the value and,
+    with predictions, when its prediction is within ``tolerance`` of the value. The range test
+    keeps a model from pulling a value onto a site type that cannot carry it (a pKa of 8 onto a
+    sulfonic acid) on the strength of its own earlier mistakes.
+    """
+    def range_gap(site: Site) -> float:
         t = catalog.by_name[site.type]
         return max(t.low - value, value - t.high, 0.0)
+
+    def gap(site: Site) -> float:
+        return max(range_gap(site), abs(site_value(site) - value)) if by_prediction else range_gap(site)
 
     consistent = [s for s in sites if gap(s) <= tolerance]
     return consistent or [min(sites, key=lambda s: (gap(s), s.atom))]
@@ -402,9 +409,9 @@ def assign_site(
     catalog prior; otherwise the same choice by catalog prior. Symmetry-equivalent atoms count as
     one candidate (lowest index is reported).
 
-    With the measured ``value`` given, only sites consistent with it compete: by prediction, those
-    predicted within ``tolerance`` of the value; by prior, those whose catalog range widened by
-    ``tolerance`` holds it. Compilations sometimes list a molecule's second constant of a kind (a
+    With the measured ``value`` given, only sites consistent with it compete: those whose catalog
+    range widened by ``tolerance`` holds it and, with predictions, that are also predicted within
+    ``tolerance`` of it. Compilations sometimes list a molecule's second constant of a kind (a
     phenol's 10 beside a carboxylic acid); such a value then goes to the site it can belong to.
     When no site is consistent, the one closest to the value is chosen. ``confidence`` is
     :func:`assignment_confidence` of the gap to the runner-up, 1.0 with a single candidate or an

@@ -46,12 +46,13 @@ class SiteRegressor:
     def _key(self, kind: str) -> str:
         return kind if self.per_kind else "all"
 
-    def fit(self, X: np.ndarray, y: np.ndarray, kinds: np.ndarray) -> "SiteRegressor":
+    def fit(self, X: np.ndarray, y: np.ndarray, kinds: np.ndarray, only_kinds=None) -> "SiteRegressor":
+        """Fit the booster(s); ``only_kinds`` limits per-kind fitting to the kinds that will be predicted."""
         X, y, kinds = np.asarray(X, np.float32), np.asarray(y, float), np.asarray(kinds)
         if len(X) != len(y) or len(y) != len(kinds):
             raise ValueError(f"X, y and kinds differ in length ({len(X)}, {len(y)}, {len(kinds)})")
         self.boosters_ = {}
-        keys = KINDS if self.per_kind else ("all",)
+        keys = tuple(k for k in KINDS if only_kinds is None or k in only_kinds) if self.per_kind else ("all",)
         for key in keys:
             mask = (kinds == key) if self.per_kind else np.ones(len(y), bool)
             if mask.sum() < 2:

@@ -39,6 +39,9 @@ class ModelBundle:
     train_bits: dict      # kind -> uint8 matrix of training-site neighbourhood bits
     card: dict
     residuals: pd.DataFrame
+    cv_metrics: pd.DataFrame | None = None      # for the validation report
+    cv_predictions: pd.DataFrame | None = None
+    curation: dict | None = None
     path: Path | None = None
 
 
@@ -63,6 +66,12 @@ def save_bundle(bundle: ModelBundle, target: Path) -> Path:
                             **{k: np.packbits(v.astype(bool), axis=1) for k, v in bundle.train_bits.items()},
                             **{f"{k}__width": np.array([v.shape[1]]) for k, v in bundle.train_bits.items()})
         bundle.residuals.to_parquet(tmp / "cv_residuals.parquet", index=False)
+        if bundle.cv_metrics is not None:
+            bundle.cv_metrics.to_parquet(tmp / "cv_metrics.parquet", index=False)
+        if bundle.cv_predictions is not None:
+            bundle.cv_predictions.to_parquet(tmp / "cv_predictions.parquet", index=False)
+        if bundle.curation is not None:
+            (tmp / "curation_summary.json").write_text(json.dumps(bundle.curation, indent=2, sort_keys=True))
         (tmp / "model_card.json").write_text(json.dumps(bundle.card, indent=2, sort_keys=True, default=str))
         (tmp / "model_card.md").write_text(render_model_card(bundle.card))
         files = {p.name: _sha256(p) for p in sorted(tmp.iterdir())}
@@ -108,7 +117,14 @@ def load_bundle(path: Path) -> ModelBundle:
         regressor=reg, settings=FeatureSettings.from_dict(config["features"]), site_types=config["site_types"],
         catalog_version=str(config["catalog_version"]), calibrator=ConformalCalibrator.from_dict(config["calibrator"]),
         domain=config["domain"], train_bits=bits, card=json.loads((path / "model_card.json").read_text()),
-        residuals=pd.read_parquet(path / "cv_residuals.parquet"), path=path)
+        residuals=pd.read_parquet(path / "cv_residuals.parquet"),
+        cv_metrics=_optional(path / "cv_metrics.parquet", pd.read_parquet),
+        cv_predictions=_optional(path / "cv_predictions.parquet", pd.read_parquet),
+        curation=_optional(path / "curation_summary.json", lambda p: json.loads(p.read_text())), path=path)
+
+
+def _optional(path: Path, read):
+    return read(path) if path.is_file() else None
 
 
 def render_model_card(card: dict) -> str:

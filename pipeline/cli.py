@@ -131,7 +131,8 @@ def train_cmd(out_dir, extra, extra_only, no_mlflow, mirror, cache, config, sets
                                            "mlflow.enabled": False if no_mlflow else None})
     out = Path(out_dir) if out_dir else Path(cfg.output_dir) / cfg.name
     cur = _curated(cfg, cache, mirror, out)
-    result = train_step(cfg, cur.result.measurements, out, extra_artifacts=[cur.summary], log=_log)
+    result = train_step(cfg, cur.result.measurements, out, extra_artifacts=[cur.summary],
+                        curation=cur.result.summary, log=_log)
     click.echo(f"model bundle: {result.bundle}\ncv metrics:   {result.cv_metrics}")
     if result.mlflow:
         click.echo(f"mlflow run:   {result.mlflow['run_id']} (model version {result.mlflow['version']}, alias candidate)")
@@ -197,24 +198,89 @@ def predict_cmd(input_path, output, sites_out, ph, model, jobs, chunk_size, smil
     click.echo(f"molecules: {result.output}" + (f"\nsites:     {result.sites}" if result.sites else ""))
 
 
+@main.command("serve")
+@click.option("--model", help="MLflow model URI (models:/NAME@ALIAS, runs:/ID/model) or a bundle folder; default: the shipped model.")
+@click.option("--host", default="127.0.0.1", show_default=True, help="Interface to bind; loopback unless you mean to share it.")
+@click.option("--port", type=click.IntRange(1, 65535), default=5077, show_default=True)
+@click.option("--max-bytes", type=click.IntRange(1), default=5 * 1024 * 1024, show_default=True,
+              help="Largest request body accepted (413 above it).")
+@config_option
+@_fail_cleanly
+def serve_cmd(model, host, port, max_bytes, config):
+    """Serve the model over HTTP (MLflow scoring protocol: POST /invocations, GET /ping)."""
+    from .serve import pyfunc_dir_for_bundle, serve
+    cfg = load_config(config)
+    if model is None or ":/" not in model:
+        uri = str(pyfunc_dir_for_bundle(_resolve_model(model, cfg.mlflow.tracking_uri)))
+    else:
+        uri = model
+    _log(f"serving {model or 'the shipped model'} on http://{host}:{port} (POST /invocations)")
+    serve(uri, host, port, max_bytes)
+
+
+@main.command("compare")
+@click.argument("run_a")
+@click.argument("run_b")
+@click.option("--holdout", type=click.Path(dir_okay=False), help="In-house CSV of held-out measurements to compare on.")
+@click.option("-o", "--output", type=click.Path(dir_okay=False), help="Write the per-site-type table (.csv) here.")
+@config_option
+@set_option
+@_fail_cleanly
+def compare_cmd(run_a, run_b, holdout, output, config, sets):
+    """Compare two trained models (MLflow run ids, model URIs or bundle folders) on the same molecules.
+
+    With --holdout: on your held-out measurements; without: on the molecules both runs'
+    cross-validation predicted. RMSE(B) - RMSE(A) gets a paired bootstrap 95% interval.
+    """
+    from .compare import compare_on_cv, compare_on_holdout, format_comparison, resolve_bundle
+    cfg = _resolve_config(config, sets)
+    a = resolve_bundle(run_a, cfg.mlflow.tracking_uri)
+    b = resolve_bundle(run_b, cfg.mlflow.tracking_uri)
+    result = compare_on_holdout(a, b, Path(holdout), cfg) if holdout else compare_on_cv(a, b, cfg.seed)
+    click.echo(format_comparison(result))
+    if output:
+        from .tables import write_table
+        write_table(result.by_type, Path(output))
+        click.echo(f"per-site-type table: {output}")
+
+
 @main.command("run")
 @click.option("-o", "--out", "out_dir", type=click.Path(file_okay=False), help="Output folder (default: the config's output_dir).")
 @extra_option
+@click.option("--demo", type=click.Path(dir_okay=False),
+              help="Batch to predict at the end (default: the packaged invented demo batch).")
 @mirror_option
 @cache_option
 @config_option
 @set_option
 @_fail_cleanly
-def run_cmd(out_dir, extra, mirror, cache, config, sets):
-    """The main job end to end on the config (default: built-in defaults)."""
+def run_cmd(out_dir, extra, demo, mirror, cache, config, sets):
+    """The main job end to end: pull, curate, train (3 CV schemes, MLflow), predict a demo batch."""
+    from importlib import resources
+
+    from .batch import run_batch
     from .workflow import train_step
     cfg = _resolve_config(config, sets, **{"data.extra": list(extra) or None, "output_dir": out_dir})
     out = Path(cfg.output_dir)
-    _log("step 1/2 pull + curate")
+    _log("step 1/3 pull + curate")
     cur = _curated(cfg, cache, mirror, out)
-    _log("step 2/2 train")
-    result = train_step(cfg, cur.result.measurements, out / "train", extra_artifacts=[cur.summary], log=_log)
-    click.echo(f"curated measurements: {cur.measurements}\nmodel bundle:         {result.bundle}")
+    _log("step 2/3 train")
+    trained = train_step(cfg, cur.result.measurements, out / "train", extra_artifacts=[cur.summary],
+                         curation=cur.result.summary, log=_log)
+    _log("step 3/3 predict the demo batch")
+    demo_path = Path(demo) if demo else Path(str(resources.files("pkasite.configs").joinpath("demo_batch_invented.csv")))
+    pred = run_batch(demo_path, out / "demo" / "molecules.csv", trained.bundle, out / "demo" / "sites.csv",
+                     progress=False)
+    click.echo("\n".join([
+        f"curated measurements: {cur.measurements}",
+        f"rejects:              {cur.rejects}",
+        f"model bundle:         {trained.bundle}",
+        f"model card:           {trained.bundle / 'model_card.md'}",
+        f"cv metrics:           {trained.cv_metrics}",
+        f"demo predictions:     {pred.output} and {pred.sites}",
+        f"mlflow:               {cfg.mlflow.tracking_uri} (run {trained.mlflow['run_id'] if trained.mlflow else 'not logged'}); "
+        "browse with: mlflow ui --backend-store-uri " + cfg.mlflow.tracking_uri,
+        "Predicted values are estimates, not a substitute for measurement."]))
 
 
 def _register_commands() -> None:

@@ -36,12 +36,19 @@ def _read_csv(path: Path) -> pd.DataFrame:
         raise InputFileError(f"{path}: not a text CSV file (cannot decode as UTF-8)") from None
     if not sample.strip():
         raise InputFileError(f"{path}: the file is empty")
+    lines = sample.splitlines()
+    comments = 0  # leading "# ..." lines are a header note (e.g. "values are invented")
+    while comments < len(lines) and lines[comments].startswith("#"):
+        comments += 1
+    if comments == len(lines):
+        raise InputFileError(f"{path}: the file has no header row")
     try:
-        delimiter = csv.Sniffer().sniff(sample.splitlines()[0], delimiters=",;\t").delimiter
+        delimiter = csv.Sniffer().sniff(lines[comments], delimiters=",;\t").delimiter
     except csv.Error:
         delimiter = ","
     try:
-        return pd.read_csv(path, dtype=str, keep_default_na=False, sep=delimiter, encoding="utf-8-sig")
+        return pd.read_csv(path, dtype=str, keep_default_na=False, sep=delimiter, encoding="utf-8-sig",
+                           skiprows=comments)
     except (pd.errors.ParserError, ValueError) as exc:
         raise InputFileError(f"{path}: not a readable CSV file ({exc})") from None
 

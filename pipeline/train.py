@@ -100,7 +100,8 @@ def labeled_site_predictions(sites: pd.DataFrame, site_pred: np.ndarray) -> np.n
 def _labels(prep: Prepared) -> pd.DataFrame:
     """One row per molecule: its label, kind and labeled site type."""
     lab = prep.sites[prep.sites["labeled"]].sort_values("mol_id")
-    return lab[["mol_id", "label", "kind", "site_type", "inchikey", "smiles", "record_id"]].reset_index(drop=True)
+    cols = ["mol_id", "label", "kind", "site_type", "atom", "inchikey", "smiles", "record_id"]
+    return lab[cols].reset_index(drop=True)
 
 
 # ----------------------------------------------------------------------------- folds
@@ -123,11 +124,11 @@ def make_splits(prep: Prepared, scheme: str, cfg: RunConfig) -> list[tuple[str, 
 
 # ----------------------------------------------------------------------------- fitting
 
-def fit_regressor(prep: Prepared, train_mols: np.ndarray, cfg: RunConfig) -> SiteRegressor:
+def fit_regressor(prep: Prepared, train_mols: np.ndarray, cfg: RunConfig, only_kinds=None) -> SiteRegressor:
     sites = prep.sites
     rows = np.flatnonzero(sites["labeled"].to_numpy() & np.isin(sites["mol_id"].to_numpy(), train_mols))
     reg = SiteRegressor(params=booster_params(cfg), per_kind=cfg.model.per_kind, seed=cfg.seed)
-    return reg.fit(prep.X[rows], sites["label"].to_numpy()[rows], sites["kind"].to_numpy()[rows])
+    return reg.fit(prep.X[rows], sites["label"].to_numpy()[rows], sites["kind"].to_numpy()[rows], only_kinds)
 
 
 def oof_site_predictions(prep: Prepared, splits, cfg: RunConfig, with_similarity: bool = False):
@@ -138,8 +139,8 @@ def oof_site_predictions(prep: Prepared, splits, cfg: RunConfig, with_similarity
     fold = np.full(len(sites), "", dtype=object)
     sim = np.full(len(sites), np.nan)
     for name, tr, te in splits:
-        reg = fit_regressor(prep, tr, cfg)
         rows = np.flatnonzero(np.isin(mol_of_row, te))
+        reg = fit_regressor(prep, tr, cfg, only_kinds=set(sites["kind"].to_numpy()[rows]))
         pred[rows] = reg.predict(prep.X[rows], sites["kind"].to_numpy()[rows])
         fold[rows] = name
         if with_similarity:
@@ -227,7 +228,7 @@ def morgan_baseline_predictions(prep: Prepared, splits, cfg: RunConfig) -> np.nd
     out = np.full(n, np.nan)
     for _, tr, te in splits:
         reg = SiteRegressor(params=booster_params(cfg), per_kind=True, seed=cfg.seed)
-        reg.fit(prep.mol_X[tr], y[tr], kinds[tr])
+        reg.fit(prep.mol_X[tr], y[tr], kinds[tr], only_kinds=set(kinds[te]))
         out[te] = reg.predict(prep.mol_X[te], kinds[te])
     return out
 

@@ -128,7 +128,7 @@ def _card(cfg: RunConfig, registry: Registry, measurements: pd.DataFrame, n_mole
 
 
 def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_artifacts: list[Path] = (),
-               registry: Registry | None = None, log: Log = _quiet) -> TrainOutputs:
+               registry: Registry | None = None, curation: dict | None = None, log: Log = _quiet) -> TrainOutputs:
     """Site table -> features -> label re-assignment -> 3-scheme CV -> final model bundle -> MLflow."""
     from pkasite.features.sites import load_catalog
     from pkasite.models.calibration import ConformalCalibrator
@@ -171,7 +171,8 @@ def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_
                  main_rows.to_dict("records"), heldout, domain, coverage, code_version())
     card["assignment"] = {**prep.table.assignment_stats(), "moved_per_round": moved}
     bundle = ModelBundle(final, prep.settings, prep.site_types, load_catalog().version, calibrator, domain,
-                         {k: prep.bits[lab & (kinds == k)] for k in ("acid", "base")}, card, cv.residuals)
+                         {k: prep.bits[lab & (kinds == k)] for k in ("acid", "base")}, card, cv.residuals,
+                         cv.metrics, cv.predictions, curation)
     bundle_path = save_bundle(bundle, out_dir / "model")
     cv_metrics = write_table(cv.metrics, out_dir / "cv_metrics.csv")
     cv_preds = write_table(cv.predictions, out_dir / "cv_predictions.parquet")

@@ -1,0 +1,161 @@
+"""Prediction with the shipped model: chemistry checks, bad input, formats, resume, workers."""
+from __future__ import annotations
+
+import subprocess
+import sys
+
+import pandas as pd
+import pytest
+from rdkit import Chem
+
+from pkasite.pipeline import batch
+from pkasite.pipeline.batch import run_batch
+from pkasite.pipeline.bundle import load_bundle
+from pkasite.pipeline.predict import MOLECULE_COLUMNS, SITE_COLUMNS, default_model_path, predict_records
+
+from conftest import DATA
+
+
+@pytest.fixture(scope="module")
+def bundle():
+    return load_bundle(default_model_path())
+
+
+def predict(bundle, smiles, ph=7.4):
+    mols, sites = predict_records(bundle, [f"m{i}" for i in range(len(smiles))], smiles, ph=ph)
+    return mols.set_index("id"), sites
+
+
+# Handbook values (CRC Handbook of Chemistry and Physics, 97th ed., 25 C; from memory). The shipped
+# model saw most of these molecules in training, so the check is loose: within 1 log unit.
+HANDBOOK = [("CC(=O)O", "acid_pka", 4.76), ("Oc1ccccc1", "acid_pka", 9.99), ("c1ccncc1", "base_pka", 5.23),
+            ("CN", "base_pka", 10.66), ("Nc1ccccc1", "base_pka", 4.60), ("OC(=O)c1ccccc1", "acid_pka", 4.20)]
+
+
+@pytest.mark.parametrize("smiles,column,value", HANDBOOK)
+def test_shipped_model_close_to_handbook(bundle, smiles, column, value):
+    mols, _ = predict(bundle, [smiles])
+    assert mols.iloc[0][column] == pytest.approx(value, abs=1.0)
+
+
+def test_orderings_from_structure(bundle):
+    """Orderings every organic chemist expects (common practice; inductive and resonance effects)."""
+    mols, _ = predict(bundle, ["OC(=O)C(F)(F)F", "OC(=O)CCl", "CC(=O)O",            # F3C- < ClCH2- < CH3- (inductive)
+                               "Oc1ccc(cc1)[N+](=O)[O-]", "Oc1ccccc1", "CCO",       # nitro resonance; phenoxide vs alkoxide
+                               "CS(=O)(=O)O", "CCN(CC)CC", "c1ccncc1", "Nc1ccccc1"])
+    a = mols["acid_pka"].tolist()
+    b = mols["base_pka"].tolist()
+    assert a[0] < a[1] < a[2]
+    assert a[3] < a[4] < a[5]
+    assert a[6] < a[2]  # sulfonic below carboxylic
+    assert b[7] > b[8] and b[7] > b[9]  # aliphatic amine more basic than pyridine and aniline
+
+
+def test_charge_state_and_species(bundle):
+    mols, sites = predict(bundle, ["CC(=O)O", "C1CCNCC1", "NCC(=O)O"], ph=7.4)
+    assert mols.loc["m0", "charge_at_ph"] == pytest.approx(-1, abs=0.05)
+    assert mols.loc["m1", "charge_at_ph"] == pytest.approx(1, abs=0.05)
+    assert mols.loc["m2", "charge_at_ph"] == pytest.approx(0, abs=0.1)
+    assert Chem.MolFromSmiles(mols.loc["m0", "major_species"]).GetAtomWithIdx(3).GetFormalCharge() == -1
+    assert mols.loc["m2", "major_species"] == "[NH3+]CC(=O)[O-]"  # zwitterion dominates at 7.4
+    low, _ = predict(bundle, ["CC(=O)O"], ph=1.0)
+    assert low.loc["m0", "charge_at_ph"] == pytest.approx(0, abs=0.01) and low.loc["m0", "fraction_neutral"] > 0.99
+    assert (sites["pka_low"] < sites["pka"]).all() and (sites["pka"] < sites["pka_high"]).all()
+    assert list(sites.columns) == SITE_COLUMNS
+
+
+def test_site_atoms_refer_to_the_input_smiles(bundle):
+    # salt form: the counter-ion comes first, so the acid O index must be mapped back to the input
+    _, sites = predict(bundle, ["[Na+].OC(=O)c1ccccc1"])
+    atom = Chem.MolFromSmiles("[Na+].OC(=O)c1ccccc1").GetAtomWithIdx(int(sites.iloc[0]["atom"]))
+    assert atom.GetSymbol() == "O" and sites.iloc[0]["site_type"] == "carboxylic_acid"
+
+
+def test_bad_input_rows_get_a_status_and_nothing_is_dropped(tmp_path):
+    out = tmp_path / "out.csv"
+    res = subprocess.run([sys.executable, "-m", "pkasite.pipeline.cli", "predict", str(DATA / "bad_inputs_invented.csv"),
+                          "-o", str(out), "--sites", str(tmp_path / "sites.csv"), "--quiet"],
+                         capture_output=True, text=True)
+    assert res.returncode == 0, res.stderr
+    assert "Traceback" not in res.stderr
+    df = pd.read_csv(out, keep_default_na=False)
+    src = pd.read_csv(DATA / "bad_inputs_invented.csv", keep_default_na=False)
+    assert len(df) == len(src) and list(df["id"]) == list(src["compound"]) and list(df.columns) == MOLECULE_COLUMNS
+    status = dict(zip(df.index, df["status"]))
+    assert [status[i] for i in range(len(df))] == [
+        "ok", "unreadable_smiles", "empty", "ok", "unsupported_element", "radical", "ok", "ok", "ok", "ok", "too_large"]
+    w = df["warnings"].tolist()
+    assert "mixture or salt" in w[3] and "isotope" in w[6] and "charged input" in w[7]
+    assert "duplicate id (also row 1)" in w[8] and "no ionizable site" in w[9]
+
+
+@pytest.mark.parametrize("content,message", [("", "the file is empty"),
+                                             ("name,value\na,1\n", "no SMILES column found"),
+                                             ("smiles\n", "header but no rows")])
+def test_unusable_files_are_one_clear_error(tmp_path, content, message):
+    f = tmp_path / "in.csv"
+    f.write_text(content)
+    res = subprocess.run([sys.executable, "-m", "pkasite.pipeline.cli", "predict", str(f), "-o", str(tmp_path / "o.csv")],
+                         capture_output=True, text=True)
+    assert res.returncode == 1 and "Traceback" not in res.stderr
+    assert message in res.stderr and len(res.stderr.strip().splitlines()) == 1
+
+
+def test_input_formats_agree(tmp_path):
+    smiles = ["CC(=O)O", "c1ccncc1", "OC(=O)c1ccccc1O"]
+    pd.DataFrame({"ID": ["a", "b", "c"], "SMILES": smiles}).to_csv(tmp_path / "in.tsv", sep="\t", index=False)
+    pd.DataFrame({"name": ["a", "b", "c"], "smi": smiles}).to_parquet(tmp_path / "in.parquet")
+    (tmp_path / "in.smi").write_text("".join(f"{s} {n}\n" for s, n in zip(smiles, "abc")))
+    with Chem.SDWriter(str(tmp_path / "in.sdf")) as w:
+        for s, n in zip(smiles, "abc"):
+            m = Chem.MolFromSmiles(s)
+            m.SetProp("_Name", n)
+            w.write(m)
+    results = []
+    for name in ("in.tsv", "in.parquet", "in.smi", "in.sdf"):
+        out = tmp_path / f"{name}.out.parquet"
+        run_batch(tmp_path / name, out, default_model_path(), progress=False)
+        results.append(pd.read_parquet(out))
+    for df in results:
+        assert list(df["id"]) == ["a", "b", "c"]
+        assert df["acid_pka"].round(2).tolist()[0] == results[0]["acid_pka"].round(2).tolist()[0]
+        assert df["base_pka"].round(2).tolist()[1] == results[0]["base_pka"].round(2).tolist()[1]
+
+
+def _input(tmp_path, n=12):
+    smiles = ["CC(=O)O", "c1ccncc1", "Oc1ccccc1", "CN", "C[C", ""] * (n // 6)
+    path = tmp_path / "in.csv"
+    pd.DataFrame({"smiles": smiles}).to_csv(path, index=False)
+    return path
+
+
+def test_interrupted_run_resumes_from_finished_chunks(tmp_path, monkeypatch):
+    path = _input(tmp_path)
+    clean = tmp_path / "clean.csv"
+    run_batch(path, clean, default_model_path(), chunk_size=3, progress=False)
+    out = tmp_path / "out.csv"
+    real = batch._run_chunk
+
+    def failing(args):
+        if args[0] == 2:
+            raise KeyboardInterrupt
+        return real(args)
+    monkeypatch.setattr(batch, "_run_chunk", failing)
+    with pytest.raises(KeyboardInterrupt):
+        run_batch(path, out, default_model_path(), chunk_size=3, progress=False)
+    assert not out.exists() and len(list((tmp_path / "out.csv.parts").glob("mol_*.parquet"))) == 2
+    monkeypatch.setattr(batch, "_run_chunk", real)
+    res = run_batch(path, out, default_model_path(), chunk_size=3, progress=False)
+    assert res.resumed_chunks == 2 and res.rows == 12
+    pd.testing.assert_frame_equal(pd.read_csv(out), pd.read_csv(clean))
+
+
+@pytest.mark.slow
+def test_worker_processes_give_the_same_table(tmp_path):
+    path = _input(tmp_path, 60)
+    one, two = tmp_path / "one.parquet", tmp_path / "two.parquet"
+    run_batch(path, one, default_model_path(), chunk_size=7, jobs=1, progress=False)
+    run_batch(path, two, default_model_path(), chunk_size=7, jobs=2, progress=False)
+    a, b = pd.read_parquet(one), pd.read_parquet(two)
+    assert len(a) == 60
+    pd.testing.assert_frame_equal(a, b)
