@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import multiprocessing
 import os
 import shutil
 import sys
@@ -30,7 +31,7 @@ from .predict import MOLECULE_COLUMNS, SITE_COLUMNS, predict_records
 from .tables import TABLE_FORMATS
 
 SMILES_NAMES = ("smiles", "smi", "canonical_smiles", "structure", "mol_smiles")
-ID_NAMES = ("id", "name", "compound_id", "mol_id", "identifier")
+ID_NAMES = ("id", "name", "compound", "compound_id", "mol_id", "identifier")
 INPUT_FORMATS = (".csv", ".tsv", ".txt", ".smi", ".sdf", ".parquet")
 
 
@@ -55,14 +56,16 @@ def _table_chunks(path: Path, chunk: int, smiles_col, id_col) -> Iterator[pd.Dat
     sep = "\t" if path.suffix.lower() in (".tsv", ".txt") else ","
     try:
         reader = pd.read_csv(path, sep=sep, dtype=str, keep_default_na=False, chunksize=chunk)
-        first = True
+        s_col = i_col = None
+        rows = 0
         for df in reader:
-            if first:
+            if s_col is None:
                 s_col = _pick(df.columns, SMILES_NAMES, smiles_col, "SMILES", path)
                 i_col = _pick(df.columns, ID_NAMES, id_col, "id", path)
-                first = False
-            yield pd.DataFrame({"smiles": df[s_col].to_numpy(), "id": df[i_col].to_numpy() if i_col else None})
-        if first:
+            if len(df):
+                rows += len(df)
+                yield pd.DataFrame({"smiles": df[s_col].to_numpy(), "id": df[i_col].to_numpy() if i_col else None})
+        if rows == 0:
             raise InputFileError(f"{path}: the file has a header but no rows")
     except pd.errors.EmptyDataError:
         raise InputFileError(f"{path}: the file is empty") from None
@@ -154,8 +157,8 @@ def _init_worker(bundle_path: str) -> None:
 
 
 def _run_chunk(args) -> tuple[int, int]:
-    index, df, ph, parts, want_sites = args
-    mols, sites = predict_records(_BUNDLE, df["id"].tolist(), df["smiles"].tolist(), ph=ph)
+    index, df, ph, parts, want_sites, explain = args
+    mols, sites = predict_records(_BUNDLE, df["id"].tolist(), df["smiles"].tolist(), ph=ph, explain=explain)
     mols.insert(0, "row", df["row"].to_numpy())
     _write_part(mols, parts / f"mol_{index:06d}.parquet")
     if want_sites:
@@ -247,7 +250,7 @@ def _assemble(parts: Path, prefix: str, columns: list[str], target: Path) -> Non
 
 def run_batch(input_path: Path, output: Path, bundle_path: Path, sites_out: Path | None = None, ph: float = 7.4,
               jobs: int = 1, chunk_size: int = 1000, smiles_col: str | None = None, id_col: str | None = None,
-              progress: bool = True) -> BatchResult:
+              progress: bool = True, explain: bool = False) -> BatchResult:
     """Predict every row of ``input_path`` into ``output`` (and per-site rows into ``sites_out``)."""
     input_path, output = Path(input_path), Path(output)
     for target in (output, sites_out):
@@ -258,7 +261,7 @@ def run_batch(input_path: Path, output: Path, bundle_path: Path, sites_out: Path
     load_bundle(bundle_path)  # verify once in the parent: a tampered bundle stops here
     t0 = time.monotonic()
     parts = output.with_name(output.name + ".parts")
-    key = _run_key(input_path, bundle_path, ph, chunk_size, sites_out is not None)
+    key = _run_key(input_path, bundle_path, ph, chunk_size, (sites_out is not None, explain))
     key_file = parts / "run.json"
     if parts.exists() and (not key_file.is_file() or json.loads(key_file.read_text()).get("key") != key):
         shutil.rmtree(parts)  # left by a run with other inputs or settings: start over
@@ -279,14 +282,17 @@ def run_batch(input_path: Path, output: Path, bundle_path: Path, sites_out: Path
                 resumed += 1
                 bar.update(len(df), index + 1)
                 continue
-            yield index, df, ph, parts, want_sites
+            yield index, df, ph, parts, want_sites, explain
 
     if jobs == 1:
         _init_worker(str(bundle_path))
         for i, n in map(_run_chunk, tasks()):
             bar.update(n, i + 1)
     else:
-        with ProcessPoolExecutor(max_workers=jobs, initializer=_init_worker, initargs=(str(bundle_path),)) as pool:
+        # spawn, not fork: LightGBM's OpenMP threads in the parent make forked workers deadlock
+        ctx = multiprocessing.get_context("spawn")
+        with ProcessPoolExecutor(max_workers=jobs, mp_context=ctx, initializer=_init_worker,
+                                 initargs=(str(bundle_path),)) as pool:
             pending = []
             for task in tasks():
                 pending.append(pool.submit(_run_chunk, task))
@@ -299,7 +305,7 @@ def run_batch(input_path: Path, output: Path, bundle_path: Path, sites_out: Path
     bar.close()
     _assemble(parts, "mol", MOLECULE_COLUMNS, output)
     if sites_out is not None:
-        _assemble(parts, "site", SITE_COLUMNS, Path(sites_out))
+        _assemble(parts, "site", SITE_COLUMNS + (["explanation"] if explain else []), Path(sites_out))
     counts = {}
     total = 0
     for f in sorted(parts.glob("mol_*.parquet")):

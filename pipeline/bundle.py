@@ -72,8 +72,9 @@ def save_bundle(bundle: ModelBundle, target: Path) -> Path:
             bundle.cv_predictions.to_parquet(tmp / "cv_predictions.parquet", index=False)
         if bundle.curation is not None:
             (tmp / "curation_summary.json").write_text(json.dumps(bundle.curation, indent=2, sort_keys=True))
-        (tmp / "model_card.json").write_text(json.dumps(bundle.card, indent=2, sort_keys=True, default=str))
-        (tmp / "model_card.md").write_text(render_model_card(bundle.card))
+        card = {**bundle.card, "files": {p.name: _sha256(p) for p in sorted(tmp.iterdir())}}
+        (tmp / "model_card.json").write_text(json.dumps(card, indent=2, sort_keys=True, default=str))
+        (tmp / "model_card.md").write_text(render_model_card(card))
         files = {p.name: _sha256(p) for p in sorted(tmp.iterdir())}
         (tmp / MANIFEST).write_text(json.dumps({"format": BUNDLE_FORMAT, "files": files}, indent=2, sort_keys=True))
         if target.exists():
@@ -150,4 +151,6 @@ def render_model_card(card: dict) -> str:
     lines += ["", "## Applicability domain and intervals", "", card.get("domain_note", ""), "",
               "## Limitations", ""] + [f"- {x}" for x in card.get("limitations", [])]
     lines += ["", "## Environment", "", f"code version {card.get('code_version')}, created {card.get('created')}", ""]
+    if card.get("files"):
+        lines += ["## Files (sha256)", ""] + [f"- `{name}` `{digest}`" for name, digest in card["files"].items()] + [""]
     return "\n".join(lines)

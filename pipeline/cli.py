@@ -133,7 +133,7 @@ def train_cmd(out_dir, extra, extra_only, no_mlflow, mirror, cache, config, sets
     cur = _curated(cfg, cache, mirror, out)
     result = train_step(cfg, cur.result.measurements, out, extra_artifacts=[cur.summary],
                         curation=cur.result.summary, log=_log)
-    click.echo(f"model bundle: {result.bundle}\ncv metrics:   {result.cv_metrics}")
+    click.echo(f"model bundle: {result.bundle}\ncv metrics:   {result.cv_metrics}\nreport:       {result.report}")
     if result.mlflow:
         click.echo(f"mlflow run:   {result.mlflow['run_id']} (model version {result.mlflow['version']}, alias candidate)")
 
@@ -177,21 +177,24 @@ def _resolve_model(model: str | None, tracking_uri: str) -> Path:
 @click.option("--chunk-size", type=click.IntRange(1, 1_000_000), default=1000, show_default=True)
 @click.option("--smiles-col", help="SMILES column name (default: auto-detected).")
 @click.option("--id-col", help="Id column name (default: auto-detected, else row numbers).")
+@click.option("--explain", is_flag=True, help="Add the top feature contributions, in chemistry words, to the per-site table.")
 @click.option("--quiet", is_flag=True, help="No progress line.")
 @config_option
 @_fail_cleanly
-def predict_cmd(input_path, output, sites_out, ph, model, jobs, chunk_size, smiles_col, id_col, quiet, config):
+def predict_cmd(input_path, output, sites_out, ph, model, jobs, chunk_size, smiles_col, id_col, explain, quiet, config):
     """Predict site pKa, macro pKa, charge at pH, intervals and domain warnings for a file of molecules.
 
     INPUT is CSV/TSV (SMILES column auto-detected), .smi, .sdf or .parquet. Every input row gives
     one output row, in input order, with a status; predictions are estimates, not measurements.
     """
     from .batch import run_batch
+    if explain and not sites_out:
+        raise click.UsageError("--explain adds a column to the per-site table: give --sites too")
     cfg = load_config(config)
     bundle = _resolve_model(model, cfg.mlflow.tracking_uri)
     result = run_batch(Path(input_path), Path(output), bundle, Path(sites_out) if sites_out else None, ph=ph,
                        jobs=jobs, chunk_size=chunk_size, smiles_col=smiles_col, id_col=id_col,
-                       progress=not quiet)
+                       progress=not quiet, explain=explain)
     statuses = ", ".join(f"{k} {v}" for k, v in sorted(result.status_counts.items()))
     _log(f"{result.rows} rows in {result.seconds:.1f} s ({statuses})"
          + (f"; resumed {result.resumed_chunks} finished chunk(s)" if result.resumed_chunks else ""))
@@ -255,7 +258,7 @@ def compare_cmd(run_a, run_b, holdout, output, config, sets):
 @set_option
 @_fail_cleanly
 def run_cmd(out_dir, extra, demo, mirror, cache, config, sets):
-    """The main job end to end: pull, curate, train (3 CV schemes, MLflow), predict a demo batch."""
+    """The main job end to end: pull, curate, train (3 CV schemes, MLflow), report, predict a demo batch."""
     from importlib import resources
 
     from .batch import run_batch
@@ -264,7 +267,7 @@ def run_cmd(out_dir, extra, demo, mirror, cache, config, sets):
     out = Path(cfg.output_dir)
     _log("step 1/3 pull + curate")
     cur = _curated(cfg, cache, mirror, out)
-    _log("step 2/3 train")
+    _log("step 2/3 train, cross-validate, report")
     trained = train_step(cfg, cur.result.measurements, out / "train", extra_artifacts=[cur.summary],
                          curation=cur.result.summary, log=_log)
     _log("step 3/3 predict the demo batch")
@@ -277,6 +280,7 @@ def run_cmd(out_dir, extra, demo, mirror, cache, config, sets):
         f"model bundle:         {trained.bundle}",
         f"model card:           {trained.bundle / 'model_card.md'}",
         f"cv metrics:           {trained.cv_metrics}",
+        f"validation report:    {trained.report}",
         f"demo predictions:     {pred.output} and {pred.sites}",
         f"mlflow:               {cfg.mlflow.tracking_uri} (run {trained.mlflow['run_id'] if trained.mlflow else 'not logged'}); "
         "browse with: mlflow ui --backend-store-uri " + cfg.mlflow.tracking_uri,
@@ -284,8 +288,10 @@ def run_cmd(out_dir, extra, demo, mirror, cache, config, sets):
 
 
 def _register_commands() -> None:
+    from .cli_report import report_command
     from .cli_sites import sites_command
     main.add_command(sites_command)
+    main.add_command(report_command)
 
 
 _register_commands()

@@ -10,7 +10,11 @@ from pathlib import Path
 from typing import Any, Literal
 
 import yaml
-from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
+from dataclasses import fields
+
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, create_model, model_validator
+
+from pkasite.models.regressor import BoosterParams
 
 
 class ConfigError(ValueError):
@@ -92,19 +96,22 @@ class FeaturesConfig(_Strict):
     use_counts: bool = True
 
 
-class ModelConfig(_Strict):
+class _ModelSettings(_Strict):
     per_kind: bool = True
-    n_estimators: int = 700
-    learning_rate: float = 0.04
-    num_leaves: int = 48
-    min_child_samples: int = 8
-    colsample_bytree: float = 0.4
-    subsample: float = 0.8
-    reg_lambda: float = 1.0
-    n_jobs: int = 2
     assignment_rounds: int = 3       # label re-assignment rounds (0: keep catalog priors)
     assignment_margin: float = 1.0   # a label moves only to a site predicted stronger by more than this
     assignment_tolerance: float = 2.0  # sites predicted (or, by prior, ranged) this close to the value compete
+
+
+# The booster keys (n_estimators, learning_rate, ...) and their defaults come from the one place
+# that defines them, models.regressor.BoosterParams.
+ModelConfig = create_model(
+    "ModelConfig", __base__=_ModelSettings,
+    **{f.name: (type(f.default), f.default) for f in fields(BoosterParams)})
+
+
+def booster_params(model: "ModelConfig") -> BoosterParams:
+    return BoosterParams(**{f.name: getattr(model, f.name) for f in fields(BoosterParams)})
 
 
 class CVConfig(_Strict):

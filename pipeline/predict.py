@@ -116,9 +116,13 @@ def _site_warnings(bundle: ModelBundle, site_type: str, kind: str, similarity: f
     return warns
 
 
-def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4,
-                    level: float = INTERVAL_LEVEL) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """Per-molecule and per-site predictions for parallel lists of ids and SMILES."""
+def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4, level: float = INTERVAL_LEVEL,
+                    explain: bool = False) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Per-molecule and per-site predictions for parallel lists of ids and SMILES.
+
+    With ``explain`` the per-site table gets an ``explanation`` column: the largest feature
+    contributions of each site in chemistry words (see :mod:`pkasite.pipeline.explain`).
+    """
     ids, smiles = list(ids), list(smiles)
     prepared = [prepare_input(s) for s in smiles]
     catalog = load_catalog()
@@ -141,6 +145,9 @@ def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4,
             if sel.any() and kind in bundle.train_bits:
                 sim[sel] = tanimoto_max(bits[sel], bundle.train_bits[kind])
         half = bundle.calibrator.half_width(similarity_bin(sim), level)
+        if explain:
+            from .explain import explain_sites, format_explanation
+            phrases = [format_explanation(p) for p in explain_sites(bundle, items)]
     else:
         kinds, pka, sim, half = np.array([]), np.array([]), np.array([]), np.array([])
     owners = np.array(owners, dtype=int)
@@ -167,7 +174,8 @@ def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4,
             site_rows.append({"id": rid, "atom": int(p.original_atoms[atom]) if p.original_atoms else int(atom),
                               "site_type": stype, "kind": kind, "pka": round(float(pka[j]), 2),
                               "pka_low": round(float(pka[j] - half[j]), 2), "pka_high": round(float(pka[j] + half[j]), 2),
-                              "similarity": round(float(sim[j]), 3), "in_domain": not sw, "warnings": "; ".join(sw)})
+                              "similarity": round(float(sim[j]), 3), "in_domain": not sw, "warnings": "; ".join(sw),
+                              **({"explanation": phrases[j]} if explain else {})})
         k, v = kinds[idx], pka[idx]
         acids, bases = v[k == "acid"], v[k == "base"]
         row["acid_pka"] = round(float(acids.min()), 2) if len(acids) else None
@@ -191,4 +199,4 @@ def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4,
         row["warnings"] = "; ".join(warns)
         mol_rows.append(row)
     return (pd.DataFrame(mol_rows, columns=MOLECULE_COLUMNS),
-            pd.DataFrame(site_rows, columns=SITE_COLUMNS))
+            pd.DataFrame(site_rows, columns=SITE_COLUMNS + (["explanation"] if explain else [])))

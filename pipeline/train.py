@@ -22,10 +22,10 @@ from pkasite.features.sites import load_catalog
 from pkasite.models.calibration import ConformalCalibrator
 from pkasite.models.domain import similarity_bin, tanimoto_max
 from pkasite.models.metrics import bootstrap_metrics, point_metrics
-from pkasite.models.regressor import BoosterParams, SiteRegressor
+from pkasite.models.regressor import SiteRegressor
 from pkasite.models.splits import group_kfold, leave_one_group_out, murcko_scaffold
 
-from .config import RunConfig
+from .config import RunConfig, booster_params
 from .sitetable import SiteTable, build_site_table, site_matrix
 
 Log = Callable[[str], None]
@@ -36,13 +36,6 @@ def feature_settings(cfg: RunConfig) -> FeatureSettings:
     f = cfg.features
     return FeatureSettings(radii=tuple(f.radii), n_bits=f.n_bits, mol_fp_bits=f.mol_fp_bits,
                            mol_fp_radius=f.mol_fp_radius, use_counts=f.use_counts)
-
-
-def booster_params(cfg: RunConfig) -> BoosterParams:
-    m = cfg.model
-    return BoosterParams(n_estimators=m.n_estimators, learning_rate=m.learning_rate, num_leaves=m.num_leaves,
-                         min_child_samples=m.min_child_samples, colsample_bytree=m.colsample_bytree,
-                         subsample=m.subsample, reg_lambda=m.reg_lambda, n_jobs=m.n_jobs)
 
 
 @dataclass
@@ -127,7 +120,7 @@ def make_splits(prep: Prepared, scheme: str, cfg: RunConfig) -> list[tuple[str, 
 def fit_regressor(prep: Prepared, train_mols: np.ndarray, cfg: RunConfig, only_kinds=None) -> SiteRegressor:
     sites = prep.sites
     rows = np.flatnonzero(sites["labeled"].to_numpy() & np.isin(sites["mol_id"].to_numpy(), train_mols))
-    reg = SiteRegressor(params=booster_params(cfg), per_kind=cfg.model.per_kind, seed=cfg.seed)
+    reg = SiteRegressor(params=booster_params(cfg.model), per_kind=cfg.model.per_kind, seed=cfg.seed)
     return reg.fit(prep.X[rows], sites["label"].to_numpy()[rows], sites["kind"].to_numpy()[rows], only_kinds)
 
 
@@ -227,7 +220,7 @@ def morgan_baseline_predictions(prep: Prepared, splits, cfg: RunConfig) -> np.nd
     kinds[mols["mol_id"]] = mols["kind"]
     out = np.full(n, np.nan)
     for _, tr, te in splits:
-        reg = SiteRegressor(params=booster_params(cfg), per_kind=True, seed=cfg.seed)
+        reg = SiteRegressor(params=booster_params(cfg.model), per_kind=True, seed=cfg.seed)
         reg.fit(prep.mol_X[tr], y[tr], kinds[tr], only_kinds=set(kinds[te]))
         out[te] = reg.predict(prep.mol_X[te], kinds[te])
     return out
@@ -278,11 +271,16 @@ def cross_validate(prep: Prepared, cfg: RunConfig, log: Log = lambda m: None) ->
             by_model["mol_morgan"] = morgan_baseline_predictions(prep, splits, cfg)
         tested = np.unique(np.concatenate([te for _, _, te in splits]))
         sub = mols[mols["mol_id"].isin(tested)]
-        tables.append(metric_table(sub, by_model, cfg, scheme))
+        main_table = metric_table(sub, by_model, cfg, scheme)
+        tables.append(main_table)
         fold_of_mol = pd.Series(fold, index=prep.sites["mol_id"]).groupby(level=0).first()
         p = sub.assign(scheme=scheme, fold=fold_of_mol.reindex(sub["mol_id"]).to_numpy(),
                        **{f"pred_{k}": v[sub["mol_id"].to_numpy()] for k, v in by_model.items()})
         preds.append(p)
+        if scheme != "site_type":  # per-fold figures (for site_type the folds are the type subsets)
+            tables.append(pd.DataFrame([
+                {"scheme": scheme, "model": "site_model", "subset": f"fold:{f}",
+                 **point_metrics(g["label"], g["pred_site_model"])} for f, g in p.groupby("fold")]))
         if scheme == "molecule":
             lab = prep.sites["labeled"].to_numpy()
             residuals = pd.DataFrame({
@@ -291,8 +289,7 @@ def cross_validate(prep: Prepared, cfg: RunConfig, log: Log = lambda m: None) ->
                 "label": prep.sites["label"].to_numpy()[lab], "pred": site_pred[lab]})
             residuals["residual"] = residuals["pred"] - residuals["label"]
         seconds[scheme] = round(time.monotonic() - t0, 1)
-        ov = tables[-1]
-        ov = ov[ov["subset"] == "overall"].set_index("model")["rmse"]
+        ov = main_table[main_table["subset"] == "overall"].set_index("model")["rmse"]
         log(f"cv {scheme}: " + ", ".join(f"{k} RMSE {v:.2f}" for k, v in ov.items()) + f" ({seconds[scheme]} s)")
     return CVResult(pd.concat(tables, ignore_index=True), pd.concat(preds, ignore_index=True), residuals,
                     seconds=seconds)
@@ -358,7 +355,7 @@ def evaluate_holdout(reg: SiteRegressor, measurements: pd.DataFrame, cfg: RunCon
     strongest = molecule_predictions(prep.sites, site_pred)
     mols = _labels(prep)
     tmols = _labels(train_prep)
-    base = SiteRegressor(params=booster_params(cfg), per_kind=True, seed=cfg.seed)
+    base = SiteRegressor(params=booster_params(cfg.model), per_kind=True, seed=cfg.seed)
     base.fit(train_prep.mol_X[tmols["mol_id"]], tmols["label"].to_numpy(), tmols["kind"].to_numpy())
     base_pred = np.full(len(prep.mol_X), np.nan)
     base_pred[mols["mol_id"]] = base.predict(prep.mol_X[mols["mol_id"]], mols["kind"].to_numpy())

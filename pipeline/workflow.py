@@ -83,6 +83,7 @@ class TrainOutputs:
     bundle: Path
     cv_metrics: Path
     cv_predictions: Path
+    report: Path
     metrics: dict
     mlflow: dict | None
 
@@ -136,6 +137,7 @@ def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_
 
     from . import train as T
     from .bundle import ModelBundle, save_bundle
+    from .report import write_report
     from .tables import write_table
     from .tracking import code_version, log_training_run
 
@@ -179,9 +181,10 @@ def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_
     summary_path = write_json({"assignment": card["assignment"], "cv_seconds": cv.seconds,
                                "interval_coverage": coverage, "domain_threshold": threshold, "heldout": heldout},
                               out_dir / "train_summary.json")
+    report = write_report(bundle_path, out_dir / "report.html")
     metrics = {}
     for r in cv.metrics.itertuples():
-        subset = r.subset.replace("kind:", "").replace("type:", "type_")
+        subset = r.subset.replace("kind:", "").replace(":", "_")  # MLflow metric names allow no colon
         for m in ("rmse", "mae", "r2", "within_1", "within_2"):
             metrics[f"cv_{r.scheme}_{r.model}_{subset}_{m}"] = getattr(r, m)
     metrics.update({f"interval_{k}": v for k, v in coverage.items()})
@@ -194,8 +197,8 @@ def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_
     tracked = None
     if cfg.mlflow.enabled:
         example = pd.DataFrame({"id": ["example-1", "example-2"], "smiles": ["OC(=O)c1ccccc1", "CN1CCCCC1"]})
-        tracked = log_training_run(cfg, metrics, [cv_metrics, cv_preds, summary_path, *extra_artifacts],
+        tracked = log_training_run(cfg, metrics, [cv_metrics, cv_preds, summary_path, report, *extra_artifacts],
                                    bundle_path, {"dataset_sha256": card["dataset_sha256"], "code_version": card["code_version"]},
                                    example)
         log(f"mlflow run {tracked['run_id']}; registered version {tracked['version']} (alias candidate)")
-    return TrainOutputs(bundle_path, cv_metrics, cv_preds, metrics, tracked)
+    return TrainOutputs(bundle_path, cv_metrics, cv_preds, report, metrics, tracked)

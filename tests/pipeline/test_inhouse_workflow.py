@@ -58,3 +58,15 @@ def test_compare_on_shared_cv_molecules(runs):
                                     "--set", common[-1]])
     assert res.exit_code == 0, res.output
     assert "shared molecule-grouped CV predictions" in res.output
+
+
+def test_report_for_the_retrained_run(runs):
+    from mlflow.tracking import MlflowClient
+    tmp, common, ids = runs
+    out = tmp / "report_B.html"
+    res = CliRunner().invoke(main, ["report", ids["B"], "-o", str(out), "--tracking-uri", common[-1].split("=", 1)[1]])
+    assert res.exit_code == 0, res.output
+    html = out.read_text()
+    assert "inhouse:inhouse_series_invented.csv" in html  # the in-house source appears in the provenance
+    artifacts = {a.path for a in MlflowClient(common[-1].split("=", 1)[1]).list_artifacts(ids["B"])}
+    assert "report_B.html" in artifacts

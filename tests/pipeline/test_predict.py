@@ -47,8 +47,18 @@ def test_orderings_from_structure(bundle):
     b = mols["base_pka"].tolist()
     assert a[0] < a[1] < a[2]
     assert a[3] < a[4] < a[5]
-    assert a[6] < a[2]  # sulfonic below carboxylic
     assert b[7] > b[8] and b[7] > b[9]  # aliphatic amine more basic than pyridine and aniline
+
+
+def test_site_types_the_data_does_not_cover_are_flagged(bundle):
+    """Sulfonic acids are fully ionized in water, so aqueous compilations carry almost no sulfonic
+    acid constants (the dwpka values of sulfonated molecules belong to their phenols and oximes).
+    The model cannot know a sulfonic acid's pKa from such data; it must say so instead."""
+    support = bundle.domain["type_support"]["acid"].get("sulfonic_acid", 0)
+    assert support < bundle.domain["min_type_support"]
+    mols, sites = predict(bundle, ["CS(=O)(=O)O"])
+    assert not sites.iloc[0]["in_domain"] and not mols.iloc[0]["in_domain"]
+    assert f"site type sulfonic_acid has {support} training examples" in sites.iloc[0]["warnings"]
 
 
 def test_charge_state_and_species(bundle):
@@ -159,3 +169,18 @@ def test_worker_processes_give_the_same_table(tmp_path):
     a, b = pd.read_parquet(one), pd.read_parquet(two)
     assert len(a) == 60
     pd.testing.assert_frame_equal(a, b)
+
+
+def test_explain_adds_chemistry_words(tmp_path):
+    src = tmp_path / "in.csv"
+    pd.DataFrame({"smiles": ["OC(=O)C(F)(F)F", "c1ccncc1"]}).to_csv(src, index=False)
+    res = subprocess.run([sys.executable, "-m", "pkasite.pipeline.cli", "predict", str(src), "-o", str(tmp_path / "o.csv"),
+                          "--sites", str(tmp_path / "s.csv"), "--explain", "--quiet"], capture_output=True, text=True)
+    assert res.returncode == 0, res.stderr
+    sites = pd.read_csv(tmp_path / "s.csv")
+    assert "explanation" in sites.columns
+    tfa = sites[sites["id"] == "row1"]["explanation"].iloc[0]
+    assert ("fluorine" in tfa or "electronegative" in tfa) and ":" in tfa  # the inductive effect is named
+    bad = subprocess.run([sys.executable, "-m", "pkasite.pipeline.cli", "predict", str(src), "-o", str(tmp_path / "o.csv"),
+                          "--explain"], capture_output=True, text=True)
+    assert bad.returncode == 2 and "give --sites too" in bad.stderr
