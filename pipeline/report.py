@@ -354,8 +354,9 @@ def _assignment(bundle: ModelBundle) -> str:
             ["mean assignment confidence", _num(a.get("mean_confidence"))],
             ["labels moved per re-assignment round", _e(", ".join(str(x) for x in a.get("moved_per_round", [])))]]
     out = ("<p>A molecule-level constant belongs to one site: the most acidic site for an acid constant, the most "
-           "basic for a base constant. Labels start at the site-type prior and are moved by the model's own "
-           "out-of-fold predictions for a few rounds.</p>" + _table(["", "count"], [[_e(k), _e(v)] for k, v in rows],
+           "basic for a base constant, among the sites whose type can carry the measured value (catalog range "
+           "widened by the assignment tolerance). Labels start at the site-type prior and are moved by the model's "
+           "own out-of-fold predictions for a few rounds; a site given in the data never moves.</p>" + _table(["", "count"], [[_e(k), _e(v)] for k, v in rows],
                                                                   numeric={1}))
     by_type = sorted((a.get("labels_by_type") or {}).items(), key=lambda kv: -kv[1])[:N_TYPES]
     if by_type:
