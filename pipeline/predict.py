@@ -43,25 +43,25 @@ def default_model_path():
 
 
 @dataclass
-class Prepared:
+class PreparedInput:
     status: str = "ok"
     warnings: list[str] = field(default_factory=list)
     mol: Chem.Mol | None = None
     original_atoms: tuple[int, ...] = ()
 
 
-def prepare_input(smiles) -> Prepared:
+def prepare_input(smiles) -> PreparedInput:
     """Read and standardize one input structure; problems become a status or a warning."""
     quiet_rdkit()
-    out = Prepared()
+    out = PreparedInput()
     text = "" if smiles is None or (isinstance(smiles, float) and np.isnan(smiles)) else str(smiles).strip()
     if not text:
-        return Prepared("empty", ["no SMILES in this row"])
+        return PreparedInput("empty", ["no SMILES in this row"])
     mol = Chem.MolFromSmiles(text)
     if mol is None:
-        return Prepared("unreadable_smiles", [f"RDKit cannot read SMILES {text[:80]!r}"])
+        return PreparedInput("unreadable_smiles", [f"RDKit cannot read SMILES {text[:80]!r}"])
     if any(a.GetNumRadicalElectrons() for a in mol.GetAtoms()):
-        return Prepared("radical", ["radicals are outside what the model covers"])
+        return PreparedInput("radical", ["radicals are outside what the model covers"])
     if len(Chem.GetMolFrags(mol)) > 1:
         out.warnings.append("mixture or salt: predicted the largest organic fragment")
     if any(a.GetIsotope() for a in mol.GetAtoms()):
@@ -73,12 +73,12 @@ def prepare_input(smiles) -> Prepared:
     try:
         std = standardize_mol(mol)
     except StructureError as exc:
-        return Prepared("invalid_structure", [str(exc)])
+        return PreparedInput("invalid_structure", [str(exc)])
     elements = {a.GetSymbol() for a in std.mol.GetAtoms()} - ORGANIC
     if elements:
-        return Prepared("unsupported_element", [f"element(s) {', '.join(sorted(elements))} not supported"])
+        return PreparedInput("unsupported_element", [f"element(s) {', '.join(sorted(elements))} not supported"])
     if std.mol.GetNumHeavyAtoms() > MAX_HEAVY_ATOMS:
-        return Prepared("too_large", [f"{std.mol.GetNumHeavyAtoms()} heavy atoms (limit {MAX_HEAVY_ATOMS})"])
+        return PreparedInput("too_large", [f"{std.mol.GetNumHeavyAtoms()} heavy atoms (limit {MAX_HEAVY_ATOMS})"])
     out.mol, out.original_atoms = std.mol, std.original_atoms
     return out
 

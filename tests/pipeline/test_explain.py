@@ -77,7 +77,7 @@ def test_groups_partition_the_columns(bundle):
 
 def test_top_items_are_sorted_phrases(bundle, items):
     for pairs in explain_sites(bundle, items, top=4):
-        assert 1 <= len(pairs) <= 4
+        assert len(pairs) in range(1, 5)
         for phrase, value in pairs:
             assert isinstance(phrase, str) and phrase.strip()
             assert np.isfinite(value)
