@@ -54,10 +54,8 @@ class Comparison:
 
 
 def _site_values(bundle: ModelBundle, table) -> np.ndarray:
-    from pkasite.features.site_features import featurize_sites
-    items = [(table.mols[m], int(a), k, t) for m, a, k, t in
-             table.sites[["mol_id", "atom", "kind", "site_type"]].itertuples(index=False)]
-    X = featurize_sites(items, bundle.settings, bundle.site_types)
+    from .sitetable import site_matrix
+    X = site_matrix(table, bundle.settings, bundle.site_types)
     return bundle.regressor.predict(X, table.sites["kind"].to_numpy())
 
 

@@ -12,7 +12,7 @@ import numpy as np
 import pandas as pd
 from rdkit import Chem
 
-from pkasite.features.site_features import FeatureSettings, featurize_sites, site_feature_names
+from pkasite.features.site_features import FeatureSettings, featurize_sites
 from pkasite.features.sites import NoSiteError, SiteAssignmentError, SiteError, assign_site, find_sites, load_catalog
 from pkasite.features.standardize import quiet_rdkit
 
@@ -80,7 +80,3 @@ def site_matrix(table: SiteTable, settings: FeatureSettings, site_types: list[st
     items = [(table.mols[m], int(a), k, t) for m, a, k, t in
              table.sites[["mol_id", "atom", "kind", "site_type"]].itertuples(index=False)]
     return featurize_sites(items, settings, site_types)
-
-
-def feature_names(settings: FeatureSettings, site_types: list[str]) -> list[str]:
-    return site_feature_names(settings, site_types)
