@@ -25,7 +25,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 from rdkit import Chem
 
-from .bundle import ModelBundle, load_bundle
+from .bundle import ModelBundle, load_bundle, verify_bundle
 from .ingest import InputFileError
 from .predict import MOLECULE_COLUMNS, SITE_COLUMNS, predict_records
 from .tables import TABLE_FORMATS
@@ -258,7 +258,7 @@ def run_batch(input_path: Path, output: Path, bundle_path: Path, sites_out: Path
             raise InputFileError(f"{target}: unknown output format; use one of {', '.join(TABLE_FORMATS)}")
     if chunk_size < 1 or jobs < 1:
         raise ValueError("--chunk-size and --jobs must be at least 1")
-    load_bundle(bundle_path)  # verify once in the parent: a tampered bundle stops here
+    verify_bundle(bundle_path)  # hashes checked once in the parent: a tampered bundle stops here
     t0 = time.monotonic()
     parts = output.with_name(output.name + ".parts")
     key = _run_key(input_path, bundle_path, ph, chunk_size, (sites_out is not None, explain))

@@ -153,17 +153,17 @@ def promote_cmd(version, alias, config, sets):
 
 
 def _resolve_model(model: str | None, tracking_uri: str) -> Path:
-    """A bundle folder, an MLflow model URI (models:/NAME@ALIAS, runs:/...), or the shipped default."""
-    from .bundle import verify_bundle
+    """A bundle folder, an MLflow model URI (models:/NAME@ALIAS, runs:/...), or the shipped default.
+
+    The bundle's hashes are checked where it is loaded (predict, serve), not here.
+    """
     from .predict import default_model_path
     if model is None:
         return default_model_path()
     if ":/" in model:
         from .tracking import download_bundle
         return download_bundle(model, tracking_uri)
-    path = Path(model)
-    verify_bundle(path)
-    return path
+    return Path(model)
 
 
 @main.command("predict")

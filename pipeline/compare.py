@@ -60,13 +60,10 @@ def _site_values(bundle: ModelBundle, table) -> np.ndarray:
 
 
 def _molecule_values(table, site_pred: np.ndarray) -> np.ndarray:
-    from .train import molecule_predictions
-    strongest = molecule_predictions(table.sites, site_pred)
+    from .train import labeled_site_predictions, molecule_predictions
     explicit = table.molecules["site_atom"].notna().to_numpy()
-    lab = table.sites["labeled"].to_numpy()
-    at_label = np.full(len(strongest), np.nan)
-    at_label[table.sites["mol_id"].to_numpy()[lab]] = site_pred[lab]
-    return np.where(explicit, at_label, strongest)
+    return np.where(explicit, labeled_site_predictions(table.sites, site_pred),
+                    molecule_predictions(table.sites, site_pred))
 
 
 def _summarize(df: pd.DataFrame, seed: int, basis: str) -> Comparison:

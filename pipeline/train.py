@@ -146,6 +146,29 @@ def oof_site_predictions(prep: Prepared, splits, cfg: RunConfig, with_similarity
     return pred, fold, sim
 
 
+def predicted_assignments(prep: Prepared, site_pred: np.ndarray, cfg: RunConfig):
+    """For each molecule with several candidate sites and no given site atom: the site its value
+    belongs to by the predictions (:func:`assign_site` with the value and the tolerance).
+
+    Yields ``(rows, predicted {atom: pKa}, label, Assignment)``; ``rows`` index ``prep.sites``.
+    """
+    from pkasite.features.sites import Site, assign_site, load_catalog
+
+    catalog = load_catalog()
+    sites = prep.sites
+    explicit = prep.table.molecules["site_atom"].notna().to_numpy()
+    for mol_id, rows in sites.groupby("mol_id").indices.items():
+        if len(rows) == 1 or explicit[mol_id]:
+            continue
+        cand = [Site(int(sites["atom"].iat[r]), sites["site_type"].iat[r], sites["kind"].iat[r],
+                     float(sites["prior"].iat[r])) for r in rows]
+        predicted = {c.atom: float(site_pred[r]) for c, r in zip(cand, rows)}
+        label = float(sites["label"].iat[rows[0]])
+        yield rows, predicted, label, assign_site(prep.table.mols[mol_id], cand[0].kind, sites=cand,
+                                                  predicted=predicted, value=label,
+                                                  tolerance=cfg.model.assignment_tolerance, catalog=catalog)
+
+
 def reassign_labels(prep: Prepared, cfg: RunConfig, log: Log) -> list[int]:
     """Re-attach labels using out-of-fold predictions; repeat until no label moves.
 
@@ -155,30 +178,17 @@ def reassign_labels(prep: Prepared, cfg: RunConfig, log: Log) -> list[int]:
     new site is stronger by more than ``model.assignment_margin``, so near-ties do not flip
     back and forth.  Explicit site atoms never move.
     """
-    from pkasite.features.sites import Site, assign_site, load_catalog
-
-    catalog = load_catalog()
     sites = prep.table.sites
     splits = make_splits(prep, "molecule", cfg)
-    explicit = prep.table.molecules["site_atom"].notna().to_numpy()
     moved_per_round = []
     for rnd in range(cfg.model.assignment_rounds):
         pred, _, _ = oof_site_predictions(prep, splits, cfg)
         labeled = sites["labeled"].to_numpy().copy()
         confidence = sites["confidence"].to_numpy().copy()
         moved = 0
-        for mol_id, rows in sites.groupby("mol_id").indices.items():
-            if len(rows) == 1 or explicit[mol_id]:
-                continue
-            cand = [Site(int(sites["atom"].iat[r]), sites["site_type"].iat[r], sites["kind"].iat[r],
-                         float(sites["prior"].iat[r])) for r in rows]
-            kind, label = cand[0].kind, float(sites["label"].iat[rows[0]])
-            p = {c.atom: float(pred[r]) for c, r in zip(cand, rows)}
-            new = assign_site(prep.table.mols[mol_id], kind, sites=cand, predicted=p, value=label,
-                              tolerance=cfg.model.assignment_tolerance, catalog=catalog)
-            cur_row = rows[labeled[rows]][0]
-            cur_atom = int(sites["atom"].iat[cur_row])
-            sign = 1.0 if kind == "acid" else -1.0
+        for rows, p, label, new in predicted_assignments(prep, pred, cfg):
+            cur_atom = int(sites["atom"].iat[rows[labeled[rows]][0]])
+            sign = 1.0 if sites["kind"].iat[rows[0]] == "acid" else -1.0
             stronger = sign * (p[cur_atom] - p[new.atom]) > cfg.model.assignment_margin
             consistent = abs(p[cur_atom] - label) <= cfg.model.assignment_tolerance
             if new.atom != cur_atom and (stronger or not consistent):
@@ -333,22 +343,10 @@ def evaluate_holdout(reg: SiteRegressor, measurements: pd.DataFrame, cfg: RunCon
     the value, as in training); ``test_rmse_strongest_<kind>``: the most acidic/basic predicted
     site against the value, which needs no attachment at all.
     """
-    from pkasite.features.sites import Site, assign_site, load_catalog
-
     prep = prepare(measurements, cfg)
-    kinds_arr = prep.sites["kind"].to_numpy()
-    site_pred = reg.predict(prep.X, kinds_arr)
-    catalog = load_catalog()
+    site_pred = reg.predict(prep.X, prep.sites["kind"].to_numpy())
     labeled = prep.sites["labeled"].to_numpy().copy()
-    for mol_id, rows in prep.sites.groupby("mol_id").indices.items():
-        if len(rows) == 1 or prep.table.molecules["site_atom"].notna().iat[mol_id]:
-            continue
-        cand = [Site(int(prep.sites["atom"].iat[r]), prep.sites["site_type"].iat[r], kinds_arr[r],
-                     float(prep.sites["prior"].iat[r])) for r in rows]
-        new = assign_site(prep.table.mols[mol_id], cand[0].kind, sites=cand,
-                          predicted={c.atom: float(site_pred[r]) for c, r in zip(cand, rows)},
-                          value=float(prep.sites["label"].iat[rows[0]]), tolerance=cfg.model.assignment_tolerance,
-                          catalog=catalog)
+    for rows, _, _, new in predicted_assignments(prep, site_pred, cfg):
         labeled[rows] = prep.sites["atom"].to_numpy()[rows] == new.atom
     prep.sites["labeled"] = labeled
     at_site = labeled_site_predictions(prep.sites, site_pred)
