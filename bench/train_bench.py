@@ -1,59 +1,137 @@
-"""Training accuracy and time: the published split and the full default config.
+"""Training time, memory and accuracy, stage by stage.
 
-    python bench/train_bench.py [--mirror DIR] [--skip-default]
+    python bench/train_bench.py [--runs default,quick,published] [--mirror DIR]
+    python bench/train_bench.py --ablation [--mirror DIR]
 
-Prints the molecule-grouped CV table against both baselines, the published-split test RMSE
-(targets: <= 1.4 for acids and bases), the gain over the Morgan baseline (target >= 25%)
-and the wall time of a full training with all three CV schemes (target < 10 min on 2 cores).
+Each run is a fresh process (so its peak RSS is its own) doing what `pkasite train` does, MLflow
+logging included (into a temporary store): pull (from the mirror), curation, site table and
+features, label assignment rounds, each CV scheme with its baselines, bootstrap metrics,
+calibration and domain, final fit, held-out evaluation, bundle and report.
+
+Runs:
+  default    configs/default.yaml: all three CV schemes with baselines (target <= 180 s on 2 idle cores)
+  quick      the same with --quick: molecule-grouped CV only, no baselines (target <= 60 s)
+  published  configs/published_split.yaml: fit on the publishers' training files, test once on
+             their test files (target: test RMSE <= 1.2 per kind, molecule's predicted constant)
+
+`--ablation` trains on the published training files with molecule-grouped CV and evaluates once
+on the published test files for each variant (feature groups off in turn, booster settings);
+see features/FEATURES.md for the table it printed.
+
+Run on an otherwise idle machine (`uptime`): LightGBM slows down badly when cores are shared.
 """
 from __future__ import annotations
 
 import argparse
+import json
 import os
+import resource
+import subprocess
+import sys
 import tempfile
 import time
 from pathlib import Path
 
-from pkasite.pipeline.config import load_config
-from pkasite.pipeline.workflow import curate_step, pull_step, train_step
-
 REPO = Path(__file__).resolve().parents[1]
+RUNS = {"default": ("default.yaml", {}),
+        "quick": ("default.yaml", {"cv.schemes": ["molecule"], "cv.baselines": False}),
+        "published": ("published_split.yaml", {})}
 
 
-def run(config: Path, mirror: Path, tmp: Path) -> tuple[dict, float, Path]:
-    cfg = load_config(config).with_overrides({"mlflow.enabled": False})
-    files = pull_step(cfg, cache=tmp / "cache", mirror=mirror)
-    cur = curate_step(cfg, files, tmp / cfg.name / "curated")
-    t0 = time.monotonic()
-    out = train_step(cfg, cur.result.measurements, tmp / cfg.name)
-    return out.metrics, time.monotonic() - t0, out.cv_metrics
+def one_run(name: str, mirror: Path, overrides: dict, out_json: Path) -> None:
+    """Body of one measured run (called in a child process)."""
+    from pkasite.pipeline.config import load_config
+    from pkasite.pipeline.stages import StageClock
+    from pkasite.pipeline.workflow import curate_step, pull_step, train_step
+
+    config, preset = RUNS.get(name, ("published_split.yaml", {}))
+    with tempfile.TemporaryDirectory() as tmp:
+        tmp = Path(tmp)
+        cfg = load_config(REPO / "configs" / config).with_overrides(
+            {**preset, **overrides, "mlflow.tracking_uri": f"sqlite:///{tmp}/mlflow.db"})
+        clock = StageClock(lambda m: print(f"  {name}: {m}", file=sys.stderr, flush=True))
+        t0 = time.monotonic()
+        with clock("pull"):
+            files = pull_step(cfg, cache=tmp / "cache", mirror=mirror)
+        with clock("curation"):
+            cur = curate_step(cfg, files, tmp / "curated")
+        out = train_step(cfg, cur.result.measurements, tmp / "out", extra_artifacts=[cur.summary],
+                         curation=cur.result.summary, clock=clock)
+        total = time.monotonic() - t0
+        import pandas as pd
+        cv = pd.read_csv(out.cv_metrics)
+        main = cv[cv["subset"].isin(["overall", "kind:acid", "kind:base"])]
+        result = {"name": name, "total_seconds": total, "stages": clock.table().to_dict("records"),
+                  "peak_rss_mb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024,
+                  "cv": main[["scheme", "model", "subset", "n", "rmse", "rmse_low", "rmse_high"]].to_dict("records"),
+                  "test": {k: v for k, v in out.metrics.items() if k.startswith("test_")}}
+    out_json.write_text(json.dumps(result, default=float))
+
+
+def measure(name: str, mirror: Path, overrides: dict | None = None) -> dict:
+    with tempfile.NamedTemporaryFile(suffix=".json", delete=False) as fh:
+        path = Path(fh.name)
+    cmd = [sys.executable, __file__, "--one", name, "--mirror", str(mirror), "--out", str(path),
+           "--overrides", json.dumps(overrides or {})]
+    subprocess.run(cmd, check=True)
+    result = json.loads(path.read_text())
+    path.unlink()
+    return result
+
+
+def print_run(r: dict) -> None:
+    import pandas as pd
+    print(f"\n## {r['name']}: {r['total_seconds']:.0f} s wall, peak RSS {r['peak_rss_mb']:.0f} MB")
+    print(pd.DataFrame(r["stages"]).to_string(index=False))
+    cv = pd.DataFrame(r["cv"])
+    if len(cv):
+        cv["rmse (95% CI)"] = cv.apply(lambda x: f"{x.rmse:.2f} ({x.rmse_low:.2f}-{x.rmse_high:.2f})", axis=1)
+        print(cv.pivot_table(index=["scheme", "model"], columns="subset", values="rmse (95% CI)",
+                             aggfunc="first").to_string())
+    if r["test"]:
+        print("held-out test (published test files):")
+        for kind in ("acid", "base"):
+            t = r["test"]
+            if f"test_n_{kind}" in t:
+                print(f"  {kind} n={t[f'test_n_{kind}']}: " + ", ".join(
+                    f"{k.removeprefix('test_').removesuffix('_' + kind)} {v:.3f}" for k, v in t.items()
+                    if k.endswith(f"_{kind}") and "rmse" in k))
 
 
 def main() -> None:
-    ap = argparse.ArgumentParser()
+    ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--mirror", default=os.environ.get("PKASITE_MIRROR", REPO.parent / "shared" / "data"))
-    ap.add_argument("--skip-default", action="store_true")
+    ap.add_argument("--runs", default="default,quick,published")
+    ap.add_argument("--ablation", action="store_true")
+    ap.add_argument("--json", help="also write every run's figures to this JSON file")
+    ap.add_argument("--set", dest="sets", action="append", default=[], metavar="KEY=VALUE",
+                    help="override a config key in every run (as `pkasite train --set`)")
+    ap.add_argument("--one", help=argparse.SUPPRESS)
+    ap.add_argument("--out", help=argparse.SUPPRESS)
+    ap.add_argument("--overrides", default="{}", help=argparse.SUPPRESS)
     args = ap.parse_args()
-    import pandas as pd
-    with tempfile.TemporaryDirectory() as tmp:
-        tmp = Path(tmp)
-        m, secs, _ = run(REPO / "configs" / "published_split.yaml", Path(args.mirror), tmp)
-        print("published split (train files -> test files)")
-        for kind in ("acid", "base"):
-            print(f"  {kind}: test RMSE {m[f'test_rmse_{kind}']:.2f} at the attached site, "
-                  f"{m[f'test_rmse_strongest_{kind}']:.2f} strongest site, Morgan baseline "
-                  f"{m[f'test_baseline_mol_morgan_rmse_{kind}']:.2f}")
-        print(f"  training wall time {secs:.0f} s")
-        if args.skip_default:
-            return
-        m, secs, cv_path = run(REPO / "configs" / "default.yaml", Path(args.mirror), tmp)
-        cv = pd.read_csv(cv_path)
-        table = cv[cv["subset"] == "overall"].pivot(index="scheme", columns="model", values="rmse")
-        print("\nfull default training, molecule-level CV RMSE (overall)")
-        print(table.round(2).to_string())
-        gain = 1 - table.loc["molecule", "site_model"] / table.loc["molecule", "mol_morgan"]
-        print(f"\ngain over the Morgan baseline (molecule CV): {gain:.1%}")
-        print(f"full training with {', '.join(table.index)} CV: {secs:.0f} s")
+    mirror = Path(args.mirror)
+    if args.one:
+        one_run(args.one, mirror, json.loads(args.overrides), Path(args.out))
+        return
+    print(f"machine: {os.cpu_count()} cores, load average {os.getloadavg()[0]:.2f} at start")
+    import yaml
+    sets = {k: yaml.safe_load(v) for k, v in (item.split("=", 1) for item in args.sets)}
+    results = []
+    if args.ablation:
+        from ablation import VARIANTS, print_ablation  # bench/ablation.py
+        for label, overrides in VARIANTS:
+            results.append({**measure("published", mirror, {**sets, **overrides, "cv.schemes": ["molecule"],
+                                                            "cv.baselines": False, "mlflow.enabled": False}),
+                            "label": label})
+        print_ablation(results)
+    else:
+        for name in args.runs.split(","):
+            results.append(measure(name, mirror, sets))
+            print_run(results[-1])
+    print(f"\nload average {os.getloadavg()[0]:.2f} at the end")
+    if args.json:
+        Path(args.json).write_text(json.dumps(results, indent=1, default=float))
 
 
 if __name__ == "__main__":

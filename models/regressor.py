@@ -1,12 +1,30 @@
-"""Gradient-boosted site regressor (LightGBM), stored as LightGBM text models, never pickles."""
+"""Gradient-boosted site regressor (LightGBM), stored as LightGBM text models, never pickles.
+
+Training fits many small boosters (folds, schemes, baselines).  On a few thousand rows one
+LightGBM booster scales poorly over threads, so :func:`fit_many` runs independent boosters
+side by side, one thread each, in a thread pool sized to the cores (LightGBM releases the
+GIL while it trains).  With ``deterministic`` set, a booster's trees do not depend on its
+thread count, so the numbers are the same whatever the pool size.
+"""
 from __future__ import annotations
 
+import os
+import threading
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import asdict, dataclass, field
 
 import lightgbm as lgb
 import numpy as np
 
 KINDS = ("acid", "base")
+
+
+def available_cores() -> int:
+    """CPU cores this process may use (respects affinity masks and container CPU sets)."""
+    try:
+        return len(os.sched_getaffinity(0))
+    except AttributeError:  # not on Linux
+        return os.cpu_count() or 1
 
 
 @dataclass(frozen=True)
@@ -18,16 +36,91 @@ class BoosterParams:
     colsample_bytree: float = 0.4
     subsample: float = 0.8
     reg_lambda: float = 1.0
-    n_jobs: int = 2
+    n_jobs: int = 0          # cores for fitting; 0: every core this process may use
 
-    def lgb_params(self, seed: int) -> dict:
+    def workers(self) -> int:
+        return self.n_jobs if self.n_jobs > 0 else available_cores()
+
+    def lgb_params(self, seed: int, threads: int = 1) -> dict:
         p = asdict(self)
-        n = p.pop("n_estimators")
         return {"objective": "regression", "learning_rate": p["learning_rate"], "num_leaves": p["num_leaves"],
                 "min_data_in_leaf": p["min_child_samples"], "feature_fraction": p["colsample_bytree"],
                 "bagging_fraction": p["subsample"], "bagging_freq": 1, "lambda_l2": p["reg_lambda"],
-                "num_threads": p["n_jobs"], "seed": seed, "deterministic": True, "force_row_wise": True,
-                "verbosity": -1, "num_iterations": n}
+                "num_threads": threads, "seed": seed, "deterministic": True, "force_col_wise": True,
+                "verbosity": -1, "num_iterations": p["n_estimators"]}
+
+
+@dataclass(frozen=True)
+class FitJob:
+    """One regressor to fit: the rows ``rows`` of ``X`` (all rows when None), their labels and kinds.
+
+    ``y`` and ``kinds`` are indexed like ``X``.  ``per_kind``: one booster per kind (else one shared
+    booster); ``only_kinds`` limits per-kind fitting to the kinds that will be predicted.
+    """
+
+    X: np.ndarray
+    y: np.ndarray
+    kinds: np.ndarray
+    rows: np.ndarray | None = None
+    per_kind: bool = True
+    only_kinds: frozenset | None = None
+
+
+_fits_lock = threading.Lock()
+_fits_done = 0
+
+
+def boosters_fitted() -> int:
+    """Boosters fitted by this process so far (a counter for timing reports)."""
+    return _fits_done
+
+
+def _train_booster(X: np.ndarray, rows: np.ndarray, y: np.ndarray, params: dict) -> lgb.Booster:
+    global _fits_done
+    data = lgb.Dataset(np.asarray(X[rows], np.float32), np.asarray(y[rows], float), free_raw_data=True,
+                       params={"verbosity": -1})
+    booster = lgb.train(params, data)
+    with _fits_lock:
+        _fits_done += 1
+    return booster
+
+
+def fit_many(jobs: list[FitJob], params: BoosterParams, seed: int = 42,
+             workers: int | None = None) -> list["SiteRegressor"]:
+    """Fit one :class:`SiteRegressor` per job; all their boosters run in one pool, largest first."""
+    tasks = []  # (job index, key, rows)
+    for j, job in enumerate(jobs):
+        if len(job.X) != len(job.y) or len(job.y) != len(job.kinds):
+            raise ValueError(f"X, y and kinds differ in length ({len(job.X)}, {len(job.y)}, {len(job.kinds)})")
+        rows = np.arange(len(job.X)) if job.rows is None else np.asarray(job.rows)
+        kinds = np.asarray(job.kinds)[rows]
+        keys = [k for k in KINDS if job.only_kinds is None or k in job.only_kinds] if job.per_kind else ["all"]
+        for key in keys:
+            sel = rows[kinds == key] if job.per_kind else rows
+            if len(sel) >= 2:
+                tasks.append((j, key, sel))
+        if not any(t[0] == j for t in tasks):
+            raise ValueError("no kind has enough training rows")
+    workers = max(1, min(workers or params.workers(), len(tasks)))
+    threads = max(1, (params.workers() if workers == 1 else 1))
+    lgb_params = params.lgb_params(seed, threads)
+    order = sorted(range(len(tasks)), key=lambda i: -len(tasks[i][2]))
+    boosters: list = [None] * len(tasks)
+
+    def run(i: int) -> None:
+        j, _, sel = tasks[i]
+        boosters[i] = _train_booster(jobs[j].X, sel, jobs[j].y, lgb_params)
+
+    if workers == 1:
+        for i in order:
+            run(i)
+    else:
+        with ThreadPoolExecutor(workers, thread_name_prefix="pkasite-fit") as pool:
+            list(pool.map(run, order))
+    regs = [SiteRegressor(params=params, per_kind=job.per_kind, seed=seed) for job in jobs]
+    for (j, key, _), booster in zip(tasks, boosters):
+        regs[j].boosters_[key] = booster
+    return regs
 
 
 @dataclass
@@ -43,24 +136,11 @@ class SiteRegressor:
     seed: int = 42
     boosters_: dict = field(default_factory=dict, init=False, repr=False)
 
-    def _key(self, kind: str) -> str:
-        return kind if self.per_kind else "all"
-
     def fit(self, X: np.ndarray, y: np.ndarray, kinds: np.ndarray, only_kinds=None) -> "SiteRegressor":
         """Fit the booster(s); ``only_kinds`` limits per-kind fitting to the kinds that will be predicted."""
-        X, y, kinds = np.asarray(X, np.float32), np.asarray(y, float), np.asarray(kinds)
-        if len(X) != len(y) or len(y) != len(kinds):
-            raise ValueError(f"X, y and kinds differ in length ({len(X)}, {len(y)}, {len(kinds)})")
-        self.boosters_ = {}
-        keys = tuple(k for k in KINDS if only_kinds is None or k in only_kinds) if self.per_kind else ("all",)
-        for key in keys:
-            mask = (kinds == key) if self.per_kind else np.ones(len(y), bool)
-            if mask.sum() < 2:
-                continue
-            data = lgb.Dataset(X[mask], y[mask], free_raw_data=True, params={"verbosity": -1})
-            self.boosters_[key] = lgb.train(self.params.lgb_params(self.seed), data)
-        if not self.boosters_:
-            raise ValueError("no kind has enough training rows")
+        job = FitJob(X, np.asarray(y, float), np.asarray(kinds), per_kind=self.per_kind,
+                     only_kinds=frozenset(only_kinds) if only_kinds is not None else None)
+        self.boosters_ = fit_many([job], self.params, self.seed)[0].boosters_
         return self
 
     def _check_fitted(self):

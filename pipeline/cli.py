@@ -108,10 +108,22 @@ def curate_cmd(out_dir, fmt, extra, extra_only, mirror, cache, config, sets):
     click.echo(f"measurements: {result.measurements}\nrejects:      {result.rejects}\nsummary:      {result.summary}")
 
 
-def _curated(cfg: RunConfig, cache, mirror, out: Path):
+def _curated(cfg: RunConfig, cache, mirror, out: Path, clock=None):
     from .workflow import curate_step, pull_step
-    files = pull_step(cfg, cache=cache, mirror=mirror, log=_log)
-    return curate_step(cfg, files, out / "curated", log=_log)
+    from .stages import StageClock
+    clock = clock or StageClock(_log)
+    with clock("pull") as stage:
+        files = pull_step(cfg, cache=cache, mirror=mirror, log=_log)
+        stage.note = f"{len(files)} files"
+    with clock("curation") as stage:
+        cur = curate_step(cfg, files, out / "curated", log=_log)
+        stage.note = f"{len(cur.result.measurements)} measurements, {len(cur.result.rejects)} rejects"
+    return cur
+
+
+QUICK = {"cv.schemes": ["molecule"], "cv.baselines": False}
+quick_option = click.option("--quick", is_flag=True,
+                            help="Iterate fast: molecule-grouped CV only, no baselines (report still written).")
 
 
 @main.command("train")
@@ -119,20 +131,27 @@ def _curated(cfg: RunConfig, cache, mirror, out: Path):
 @extra_option
 @click.option("--extra-only", is_flag=True, default=None, help="Train on the in-house files alone.")
 @click.option("--no-mlflow", is_flag=True, help="Do not log to MLflow.")
+@quick_option
 @mirror_option
 @cache_option
 @config_option
 @set_option
 @_fail_cleanly
-def train_cmd(out_dir, extra, extra_only, no_mlflow, mirror, cache, config, sets):
-    """Curate, then train site models with three cross-validation schemes; log to MLflow."""
+def train_cmd(out_dir, extra, extra_only, no_mlflow, quick, mirror, cache, config, sets):
+    """Curate, then train site models with three cross-validation schemes; log to MLflow.
+
+    Prints one progress line per stage with the elapsed time.
+    """
+    from .stages import StageClock
     from .workflow import train_step
     cfg = _resolve_config(config, sets, **{"data.extra": list(extra) or None, "data.extra_only": extra_only,
-                                           "mlflow.enabled": False if no_mlflow else None})
+                                           "mlflow.enabled": False if no_mlflow else None,
+                                           **(QUICK if quick else {})})
     out = Path(out_dir) if out_dir else Path(cfg.output_dir) / cfg.name
-    cur = _curated(cfg, cache, mirror, out)
+    clock = StageClock(_log)
+    cur = _curated(cfg, cache, mirror, out, clock)
     result = train_step(cfg, cur.result.measurements, out, extra_artifacts=[cur.summary],
-                        curation=cur.result.summary, log=_log)
+                        curation=cur.result.summary, log=_log, clock=clock)
     click.echo(f"model bundle: {result.bundle}\ncv metrics:   {result.cv_metrics}\nreport:       {result.report}")
     if result.mlflow:
         click.echo(f"mlflow run:   {result.mlflow['run_id']} (model version {result.mlflow['version']}, alias candidate)")
@@ -262,18 +281,21 @@ def run_cmd(out_dir, extra, demo, mirror, cache, config, sets):
     from importlib import resources
 
     from .batch import run_batch
+    from .stages import StageClock
     from .workflow import train_step
     cfg = _resolve_config(config, sets, **{"data.extra": list(extra) or None, "output_dir": out_dir})
     out = Path(cfg.output_dir)
+    clock = StageClock(_log)
     _log("step 1/3 pull + curate")
-    cur = _curated(cfg, cache, mirror, out)
+    cur = _curated(cfg, cache, mirror, out, clock)
     _log("step 2/3 train, cross-validate, report")
     trained = train_step(cfg, cur.result.measurements, out / "train", extra_artifacts=[cur.summary],
-                         curation=cur.result.summary, log=_log)
+                         curation=cur.result.summary, log=_log, clock=clock)
     _log("step 3/3 predict the demo batch")
     demo_path = Path(demo) if demo else Path(str(resources.files("pkasite.configs").joinpath("demo_batch_invented.csv")))
-    pred = run_batch(demo_path, out / "demo" / "molecules.csv", trained.bundle, out / "demo" / "sites.csv",
-                     progress=False)
+    with clock("demo prediction"):
+        pred = run_batch(demo_path, out / "demo" / "molecules.csv", trained.bundle, out / "demo" / "sites.csv",
+                         progress=False)
     click.echo("\n".join([
         f"curated measurements: {cur.measurements}",
         f"rejects:              {cur.rejects}",

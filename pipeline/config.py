@@ -98,7 +98,10 @@ class FeaturesConfig(_Strict):
 
 class _ModelSettings(_Strict):
     per_kind: bool = True
-    assignment_rounds: int = 3       # label re-assignment rounds (0: keep catalog priors)
+    assignment_rounds: int = 3       # at most this many label re-assignment rounds (0: keep catalog priors)
+    assignment_stop_fraction: float = Field(0.01, ge=0, le=1)  # stop once at most this share of labels moves
+    assignment_n_estimators: int | None = 250      # cheaper boosters for the assignment rounds
+    assignment_learning_rate: float | None = 0.1   # (None: the main model's settings)
     assignment_margin: float = 1.0   # a label moves only to a site predicted stronger by more than this
     assignment_tolerance: float = 2.0  # sites predicted (or, by prior, ranged) this close to the value compete
 
@@ -110,8 +113,14 @@ ModelConfig = create_model(
     **{f.name: (type(f.default), f.default) for f in fields(BoosterParams)})
 
 
-def booster_params(model: "ModelConfig") -> BoosterParams:
-    return BoosterParams(**{f.name: getattr(model, f.name) for f in fields(BoosterParams)})
+def booster_params(model: "ModelConfig", assignment: bool = False) -> BoosterParams:
+    """The booster settings of the model, or of the label-assignment rounds with ``assignment``."""
+    params = {f.name: getattr(model, f.name) for f in fields(BoosterParams)}
+    if assignment:
+        for key in ("n_estimators", "learning_rate"):
+            if getattr(model, f"assignment_{key}") is not None:
+                params[key] = getattr(model, f"assignment_{key}")
+    return BoosterParams(**params)
 
 
 class CVConfig(_Strict):

@@ -115,16 +115,18 @@ def _later_constant_keys(raw: pd.DataFrame) -> set:
     acidic), whatever their kind.  A constant of index k is the first of its kind
     when the k-1 lower constants of the compound are all of the other kind.
     """
-    later = set()
+    groups: dict[tuple, list[tuple]] = {}
     indexed = raw[raw["constant_index"].notna()]
-    for _, grp in indexed.groupby(["source", "group_key"], sort=False):
-        for label, row in grp.iterrows():
-            k = int(row["constant_index"])
+    for label, source, key, index, kind in zip(indexed.index, indexed["source"], indexed["group_key"],
+                                               indexed["constant_index"], indexed["kind"]):
+        groups.setdefault((source, key), []).append((label, int(index), kind))
+    later = set()
+    for members in groups.values():
+        for label, k, kind in members:
             if k <= 1:
                 continue
-            lower_other = grp[(grp["constant_index"] < k) & (grp["kind"] != row["kind"])]
-            lower_other = lower_other["constant_index"].nunique()
-            if lower_other < k - 1:
+            lower_other = {i for _, i, other in members if i < k and other != kind}
+            if len(lower_other) < k - 1:
                 later.add(label)
     return later
 
@@ -142,7 +144,7 @@ def curate(raw: pd.DataFrame, cfg: CurationConfig) -> CurationResult:
     later = _later_constant_keys(raw) if cfg.first_constant_only else set()
     kept, rejects = [], []
     cache: dict[tuple, Any] = {}
-    for label, row in raw.iterrows():
+    for label, row in zip(raw.index, raw.to_dict("records")):
         try:
             kept.append(_curate_row(label, row, cfg, later, cache))
         except Reject as rej:
@@ -158,13 +160,13 @@ def curate(raw: pd.DataFrame, cfg: CurationConfig) -> CurationResult:
     return CurationResult(measurements, rejects_df, summary)
 
 
-def _reject_row(row: pd.Series, reason: str, detail: str) -> dict:
+def _reject_row(row: dict, reason: str, detail: str) -> dict:
     return {"source": row["source"], "record_id": str(row["record_id"]), "file": row["file"],
             "row": int(row["row"]), "reason": reason, "detail": detail, "smiles": row["smiles"],
             "value_text": str(row["value_text"])}
 
 
-def _curate_row(label, row: pd.Series, cfg: CurationConfig, later: set, cache: dict) -> dict:
+def _curate_row(label, row: dict, cfg: CurationConfig, later: set, cache: dict) -> dict:
     if row["kind"] not in ("acid", "base"):
         raise Reject("kind_invalid", f"kind {row['kind']!r} is not acid or base")
     value = parse_value(row["value_text"], cfg)
@@ -231,11 +233,15 @@ def _aggregate(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFrame, l
     """Merge replicates of one (structure, kind, site): median, count, spread; handle conflicts."""
     if rows.empty:
         return pd.DataFrame(columns=MEASUREMENT_COLUMNS), []
-    rows = rows.copy()
-    rows["site_key"] = rows["site_atom"].map(lambda a: -1 if a is None or pd.isna(a) else int(a))
+    groups: dict[tuple, list[dict]] = {}
+    for r in rows.to_dict("records"):
+        a = r["site_atom"]
+        site_key = -1 if a is None or pd.isna(a) else int(a)
+        groups.setdefault((r["inchikey"], r["kind"], site_key), []).append(r)
     out, conflicts = [], []
-    for (_, kind, site_key), grp in rows.groupby(["inchikey", "kind", "site_key"], sort=False):
-        spread = float(grp["pka"].max() - grp["pka"].min())
+    for (_, kind, site_key), grp in groups.items():
+        values = np.array([r["pka"] for r in grp], float)
+        spread = float(values.max() - values.min())
         conflict = spread > cfg.conflict_spread
         if conflict and cfg.conflict_action == "drop":
             detail = (f"{len(grp)} replicates span {spread:.2f} log units "
@@ -244,18 +250,20 @@ def _aggregate(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFrame, l
                 {"source": r["source"], "record_id": r["record_id"], "file": r["file"], "row": r["row"],
                  "reason": "conflicting_replicates", "detail": detail, "smiles": r["input_smiles"],
                  "value_text": str(r["value_text"])}
-                for _, r in grp.iterrows())
+                for r in grp)
             continue
-        first = grp.iloc[0]
-        t = grp["temperature_c"].dropna()
+        first = grp[0]
+        t = [r["temperature_c"] for r in grp if not pd.isna(r["temperature_c"])]
         out.append({
             "record_id": f"{first['source']}:{first['record_id']}", "smiles": first["smiles"],
-            "inchikey": first["inchikey"], "kind": kind, "pka": float(grp["pka"].median()), "n": len(grp),
-            "spread": spread, "temperature_c": float(t.median()) if len(t) else float("nan"),
-            "method": _joined(grp["method"]), "source": _joined(grp["source"]), "licence": _joined(grp["licence"]),
+            "inchikey": first["inchikey"], "kind": kind, "pka": float(np.median(values)), "n": len(grp),
+            "spread": spread, "temperature_c": float(np.median(t)) if t else float("nan"),
+            "method": _joined(r["method"] for r in grp), "source": _joined(r["source"] for r in grp),
+            "licence": _joined(r["licence"] for r in grp),
             "site_atom": None if site_key < 0 else int(site_key),
-            "members": ";".join(f"{s}:{r}" for s, r in zip(grp["source"], grp["record_id"])),
-            "split": _joined(grp["split"]), "in_house": bool(grp["in_house"].any()), "conflict": bool(conflict),
+            "members": ";".join(f"{r['source']}:{r['record_id']}" for r in grp),
+            "split": _joined(r["split"] for r in grp), "in_house": any(bool(r["in_house"]) for r in grp),
+            "conflict": bool(conflict),
         })
     result = pd.DataFrame(out, columns=MEASUREMENT_COLUMNS)
     result["site_atom"] = result["site_atom"].astype("Int64")

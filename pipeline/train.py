@@ -8,9 +8,7 @@ a molecule-level baseline evaluated on the same folds.
 """
 from __future__ import annotations
 
-import time
 from dataclasses import dataclass, field
-from typing import Callable
 
 import numpy as np
 import pandas as pd
@@ -22,13 +20,13 @@ from pkasite.features.sites import load_catalog
 from pkasite.models.calibration import ConformalCalibrator
 from pkasite.models.domain import similarity_bin, tanimoto_max
 from pkasite.models.metrics import bootstrap_metrics, point_metrics
-from pkasite.models.regressor import SiteRegressor
+from pkasite.models.regressor import FitJob, SiteRegressor, fit_many
 from pkasite.models.splits import group_kfold, leave_one_group_out, murcko_scaffold
 
 from .config import RunConfig, booster_params
 from .sitetable import SiteTable, build_site_table, site_matrix
+from .stages import StageClock
 
-Log = Callable[[str], None]
 BASELINES = ("type_median", "mol_morgan")
 
 
@@ -53,9 +51,12 @@ class Prepared:
     def sites(self) -> pd.DataFrame:
         return self.table.sites
 
+    def summary(self) -> str:
+        return (f"{len(self.table.molecules)} molecules, {len(self.sites)} candidate sites, "
+                f"{len(self.table.rejects)} without a site of their kind, {self.X.shape[1]} features")
 
-def prepare(measurements: pd.DataFrame, cfg: RunConfig, log: Log = lambda m: None) -> Prepared:
-    t0 = time.monotonic()
+
+def prepare(measurements: pd.DataFrame, cfg: RunConfig) -> Prepared:
     table = build_site_table(measurements)
     settings = feature_settings(cfg)
     site_types = [t.name for t in load_catalog().types]
@@ -63,8 +64,6 @@ def prepare(measurements: pd.DataFrame, cfg: RunConfig, log: Log = lambda m: Non
     bits = np.stack([site_neighbourhood_bits(table.mols[m], int(a)) for m, a in
                      table.sites[["mol_id", "atom"]].itertuples(index=False)]) if len(table.sites) else np.zeros((0, 1024), np.uint8)
     mol_X = np.stack([mol_fingerprint_counts(m, 2, 2048) for m in table.mols])
-    log(f"site table: {len(table.molecules)} molecules, {len(table.sites)} candidate sites, "
-        f"{len(table.rejects)} without a site of their kind ({time.monotonic() - t0:.1f} s)")
     return Prepared(table, X, bits, mol_X, site_types, settings)
 
 
@@ -117,33 +116,57 @@ def make_splits(prep: Prepared, scheme: str, cfg: RunConfig) -> list[tuple[str, 
 
 # ----------------------------------------------------------------------------- fitting
 
-def fit_regressor(prep: Prepared, train_mols: np.ndarray, cfg: RunConfig, only_kinds=None) -> SiteRegressor:
+def site_job(prep: Prepared, train_mols: np.ndarray, cfg: RunConfig, only_kinds=None) -> FitJob:
+    """The site regressor of one training set: the labeled sites of ``train_mols``."""
     sites = prep.sites
     rows = np.flatnonzero(sites["labeled"].to_numpy() & np.isin(sites["mol_id"].to_numpy(), train_mols))
-    reg = SiteRegressor(params=booster_params(cfg.model), per_kind=cfg.model.per_kind, seed=cfg.seed)
-    return reg.fit(prep.X[rows], sites["label"].to_numpy()[rows], sites["kind"].to_numpy()[rows], only_kinds)
+    return FitJob(prep.X, sites["label"].to_numpy(), sites["kind"].to_numpy(), rows, cfg.model.per_kind,
+                  frozenset(only_kinds) if only_kinds is not None else None)
 
 
-def oof_site_predictions(prep: Prepared, splits, cfg: RunConfig, with_similarity: bool = False):
-    """Out-of-fold predictions for every candidate site of each test molecule."""
+def fit_regressor(prep: Prepared, train_mols: np.ndarray, cfg: RunConfig, only_kinds=None) -> SiteRegressor:
+    return fit_many([site_job(prep, train_mols, cfg, only_kinds)], booster_params(cfg.model), cfg.seed)[0]
+
+
+def _test_rows(prep: Prepared, test_mols: np.ndarray) -> np.ndarray:
+    return np.flatnonzero(np.isin(prep.sites["mol_id"].to_numpy(), test_mols))
+
+
+def site_jobs(prep: Prepared, splits, cfg: RunConfig) -> list[FitJob]:
+    """One site-regressor job per fold, fitting only the kinds its test molecules need."""
+    kinds = prep.sites["kind"].to_numpy()
+    return [site_job(prep, tr, cfg, only_kinds=set(kinds[_test_rows(prep, te)])) for _, tr, te in splits]
+
+
+def site_oof(prep: Prepared, splits, regs: list[SiteRegressor], with_similarity: bool = False):
+    """Out-of-fold predictions for every candidate site of each test molecule, from fitted fold models."""
     sites = prep.sites
-    mol_of_row = sites["mol_id"].to_numpy()
+    kinds = sites["kind"].to_numpy()
     pred = np.full(len(sites), np.nan)
     fold = np.full(len(sites), "", dtype=object)
     sim = np.full(len(sites), np.nan)
-    for name, tr, te in splits:
-        rows = np.flatnonzero(np.isin(mol_of_row, te))
-        reg = fit_regressor(prep, tr, cfg, only_kinds=set(sites["kind"].to_numpy()[rows]))
-        pred[rows] = reg.predict(prep.X[rows], sites["kind"].to_numpy()[rows])
+    for (name, tr, te), reg in zip(splits, regs):
+        rows = _test_rows(prep, te)
+        pred[rows] = reg.predict(prep.X[rows], kinds[rows])
         fold[rows] = name
         if with_similarity:
-            train_rows = np.flatnonzero(sites["labeled"].to_numpy() & np.isin(mol_of_row, tr))
+            train_rows = np.flatnonzero(sites["labeled"].to_numpy() & np.isin(sites["mol_id"].to_numpy(), tr))
             for kind in ("acid", "base"):
-                q = rows[sites["kind"].to_numpy()[rows] == kind]
-                t = train_rows[sites["kind"].to_numpy()[train_rows] == kind]
+                q = rows[kinds[rows] == kind]
+                t = train_rows[kinds[train_rows] == kind]
                 if len(q):
                     sim[q] = tanimoto_max(prep.bits[q], prep.bits[t])
     return pred, fold, sim
+
+
+def oof_site_predictions(prep: Prepared, splits, cfg: RunConfig, with_similarity: bool = False,
+                         assignment: bool = False):
+    """Out-of-fold predictions for every candidate site of each test molecule (all folds fitted in parallel).
+
+    ``assignment``: with the (possibly cheaper) booster settings of the label-assignment rounds.
+    """
+    regs = fit_many(site_jobs(prep, splits, cfg), booster_params(cfg.model, assignment), cfg.seed)
+    return site_oof(prep, splits, regs, with_similarity)
 
 
 def predicted_assignments(prep: Prepared, site_pred: np.ndarray, cfg: RunConfig):
@@ -169,37 +192,41 @@ def predicted_assignments(prep: Prepared, site_pred: np.ndarray, cfg: RunConfig)
                                                   tolerance=cfg.model.assignment_tolerance, catalog=catalog)
 
 
-def reassign_labels(prep: Prepared, cfg: RunConfig, log: Log) -> list[int]:
-    """Re-attach labels using out-of-fold predictions; repeat until no label moves.
+def reassign_labels(prep: Prepared, cfg: RunConfig, clock: StageClock | None = None) -> list[int]:
+    """Re-attach labels using out-of-fold predictions, for at most ``model.assignment_rounds`` rounds.
 
     Each molecule's value goes to the most acidic (acid) or most basic (base) site among
     those predicted within ``model.assignment_tolerance`` of it (:func:`assign_site`).  A
     label moves only when its current site is no longer consistent with the value or the
     new site is stronger by more than ``model.assignment_margin``, so near-ties do not flip
-    back and forth.  Explicit site atoms never move.
+    back and forth.  Explicit site atoms never move.  Rounds stop early once fewer than
+    ``model.assignment_stop_fraction`` of the molecules move.
     """
+    clock = clock or StageClock()
     sites = prep.table.sites
     splits = make_splits(prep, "molecule", cfg)
+    n_mols = len(prep.table.molecules)
     moved_per_round = []
     for rnd in range(cfg.model.assignment_rounds):
-        pred, _, _ = oof_site_predictions(prep, splits, cfg)
-        labeled = sites["labeled"].to_numpy().copy()
-        confidence = sites["confidence"].to_numpy().copy()
-        moved = 0
-        for rows, p, label, new in predicted_assignments(prep, pred, cfg):
-            cur_atom = int(sites["atom"].iat[rows[labeled[rows]][0]])
-            sign = 1.0 if sites["kind"].iat[rows[0]] == "acid" else -1.0
-            stronger = sign * (p[cur_atom] - p[new.atom]) > cfg.model.assignment_margin
-            consistent = abs(p[cur_atom] - label) <= cfg.model.assignment_tolerance
-            if new.atom != cur_atom and (stronger or not consistent):
-                labeled[rows] = sites["atom"].to_numpy()[rows] == new.atom
-                moved += 1
-            confidence[rows] = new.confidence
-        sites["labeled"] = labeled
-        sites["confidence"] = confidence
-        moved_per_round.append(moved)
-        log(f"label re-assignment round {rnd + 1}: {moved} labels moved")
-        if moved == 0:
+        with clock(f"label assignment round {rnd + 1}") as stage:
+            pred, _, _ = oof_site_predictions(prep, splits, cfg, assignment=True)
+            labeled = sites["labeled"].to_numpy().copy()
+            confidence = sites["confidence"].to_numpy().copy()
+            moved = 0
+            for rows, p, label, new in predicted_assignments(prep, pred, cfg):
+                cur_atom = int(sites["atom"].iat[rows[labeled[rows]][0]])
+                sign = 1.0 if sites["kind"].iat[rows[0]] == "acid" else -1.0
+                stronger = sign * (p[cur_atom] - p[new.atom]) > cfg.model.assignment_margin
+                consistent = abs(p[cur_atom] - label) <= cfg.model.assignment_tolerance
+                if new.atom != cur_atom and (stronger or not consistent):
+                    labeled[rows] = sites["atom"].to_numpy()[rows] == new.atom
+                    moved += 1
+                confidence[rows] = new.confidence
+            sites["labeled"] = labeled
+            sites["confidence"] = confidence
+            moved_per_round.append(moved)
+            stage.note = f"{moved} labels moved ({moved / max(n_mols, 1):.1%} of {n_mols} molecules)"
+        if moved <= cfg.model.assignment_stop_fraction * n_mols:
             break
     return moved_per_round
 
@@ -220,18 +247,27 @@ def type_median_predictions(prep: Prepared, splits) -> np.ndarray:
     return pred
 
 
-def morgan_baseline_predictions(prep: Prepared, splits, cfg: RunConfig) -> np.ndarray:
-    """Baseline: molecule-level LightGBM on Morgan counts, per kind, same folds (per mol_id)."""
+def _molecule_labels(prep: Prepared) -> tuple[np.ndarray, np.ndarray]:
+    """Label and kind per mol_id."""
     mols = _labels(prep)
-    n = int(mols["mol_id"].max()) + 1
+    n = len(prep.mol_X)
     y = np.full(n, np.nan)
     kinds = np.empty(n, dtype=object)
     y[mols["mol_id"]] = mols["label"]
     kinds[mols["mol_id"]] = mols["kind"]
-    out = np.full(n, np.nan)
-    for _, tr, te in splits:
-        reg = SiteRegressor(params=booster_params(cfg.model), per_kind=True, seed=cfg.seed)
-        reg.fit(prep.mol_X[tr], y[tr], kinds[tr], only_kinds=set(kinds[te]))
+    return y, kinds
+
+
+def morgan_jobs(prep: Prepared, splits) -> list[FitJob]:
+    """Baseline: a molecule-level LightGBM on Morgan counts per kind, one job per fold (rows are mol_ids)."""
+    y, kinds = _molecule_labels(prep)
+    return [FitJob(prep.mol_X, y, kinds, np.asarray(tr), True, frozenset(kinds[te])) for _, tr, te in splits]
+
+
+def morgan_oof(prep: Prepared, splits, regs: list[SiteRegressor]) -> np.ndarray:
+    _, kinds = _molecule_labels(prep)
+    out = np.full(len(prep.mol_X), np.nan)
+    for (_, _, te), reg in zip(splits, regs):
         out[te] = reg.predict(prep.mol_X[te], kinds[te])
     return out
 
@@ -264,45 +300,53 @@ class CVResult:
     predictions: pd.DataFrame        # one row per (scheme, molecule) with every model's prediction
     residuals: pd.DataFrame          # molecule-scheme OOF labeled-site rows: kind, site_type, similarity, residual
     moved_per_round: list[int] = field(default_factory=list)
-    seconds: dict = field(default_factory=dict)
 
 
-def cross_validate(prep: Prepared, cfg: RunConfig, log: Log = lambda m: None) -> CVResult:
+def cross_validate(prep: Prepared, cfg: RunConfig, clock: StageClock | None = None) -> CVResult:
+    """Every scheme of ``cv.schemes`` (with the baselines when ``cv.baselines``), then bootstrap metrics.
+
+    Within a scheme, all fold models (site model and baselines) are fitted in one parallel pool.
+    """
+    clock = clock or StageClock()
     mols = _labels(prep)
-    tables, preds, residuals, seconds = [], [], None, {}
+    preds, residuals, scored = [], None, []
     for scheme in cfg.cv.schemes:
-        t0 = time.monotonic()
-        splits = make_splits(prep, scheme, cfg)
-        site_pred, fold, sim = oof_site_predictions(prep, splits, cfg, with_similarity=(scheme == "molecule"))
-        by_model = {"site_model": labeled_site_predictions(prep.sites, site_pred),
-                    "site_model_strongest": molecule_predictions(prep.sites, site_pred)}
-        if cfg.cv.baselines:
-            by_model["type_median"] = labeled_site_predictions(prep.sites, type_median_predictions(prep, splits))
-            by_model["mol_morgan"] = morgan_baseline_predictions(prep, splits, cfg)
-        tested = np.unique(np.concatenate([te for _, _, te in splits]))
-        sub = mols[mols["mol_id"].isin(tested)]
-        main_table = metric_table(sub, by_model, cfg, scheme)
-        tables.append(main_table)
-        fold_of_mol = pd.Series(fold, index=prep.sites["mol_id"]).groupby(level=0).first()
-        p = sub.assign(scheme=scheme, fold=fold_of_mol.reindex(sub["mol_id"]).to_numpy(),
-                       **{f"pred_{k}": v[sub["mol_id"].to_numpy()] for k, v in by_model.items()})
-        preds.append(p)
-        if scheme != "site_type":  # per-fold figures (for site_type the folds are the type subsets)
-            tables.append(pd.DataFrame([
-                {"scheme": scheme, "model": "site_model", "subset": f"fold:{f}",
-                 **point_metrics(g["label"], g["pred_site_model"])} for f, g in p.groupby("fold")]))
-        if scheme == "molecule":
-            lab = prep.sites["labeled"].to_numpy()
-            residuals = pd.DataFrame({
-                "mol_id": prep.sites["mol_id"].to_numpy()[lab], "kind": prep.sites["kind"].to_numpy()[lab],
-                "site_type": prep.sites["site_type"].to_numpy()[lab], "similarity": sim[lab],
-                "label": prep.sites["label"].to_numpy()[lab], "pred": site_pred[lab]})
-            residuals["residual"] = residuals["pred"] - residuals["label"]
-        seconds[scheme] = round(time.monotonic() - t0, 1)
-        ov = main_table[main_table["subset"] == "overall"].set_index("model")["rmse"]
-        log(f"cv {scheme}: " + ", ".join(f"{k} RMSE {v:.2f}" for k, v in ov.items()) + f" ({seconds[scheme]} s)")
-    return CVResult(pd.concat(tables, ignore_index=True), pd.concat(preds, ignore_index=True), residuals,
-                    seconds=seconds)
+        with clock(f"cv {scheme}" + (" + baselines" if cfg.cv.baselines else "")) as stage:
+            splits = make_splits(prep, scheme, cfg)
+            jobs = site_jobs(prep, splits, cfg) + (morgan_jobs(prep, splits) if cfg.cv.baselines else [])
+            regs = fit_many(jobs, booster_params(cfg.model), cfg.seed)
+            site_pred, fold, sim = site_oof(prep, splits, regs[:len(splits)], with_similarity=(scheme == "molecule"))
+            by_model = {"site_model": labeled_site_predictions(prep.sites, site_pred),
+                        "site_model_strongest": molecule_predictions(prep.sites, site_pred)}
+            if cfg.cv.baselines:
+                by_model["type_median"] = labeled_site_predictions(prep.sites, type_median_predictions(prep, splits))
+                by_model["mol_morgan"] = morgan_oof(prep, splits, regs[len(splits):])
+            tested = np.unique(np.concatenate([te for _, _, te in splits]))
+            sub = mols[mols["mol_id"].isin(tested)]
+            fold_of_mol = pd.Series(fold, index=prep.sites["mol_id"]).groupby(level=0).first()
+            p = sub.assign(scheme=scheme, fold=fold_of_mol.reindex(sub["mol_id"]).to_numpy(),
+                           **{f"pred_{k}": v[sub["mol_id"].to_numpy()] for k, v in by_model.items()})
+            preds.append(p)
+            scored.append((scheme, sub, by_model, p))
+            if scheme == "molecule":
+                lab = prep.sites["labeled"].to_numpy()
+                residuals = pd.DataFrame({
+                    "mol_id": prep.sites["mol_id"].to_numpy()[lab], "kind": prep.sites["kind"].to_numpy()[lab],
+                    "site_type": prep.sites["site_type"].to_numpy()[lab], "similarity": sim[lab],
+                    "label": prep.sites["label"].to_numpy()[lab], "pred": site_pred[lab]})
+                residuals["residual"] = residuals["pred"] - residuals["label"]
+            stage.note = ", ".join(f"{k} RMSE {np.sqrt(np.nanmean((p[f'pred_{k}'] - p['label']) ** 2)):.2f}"
+                                   for k in by_model)
+    with clock("bootstrap metrics") as stage:
+        tables = []
+        for scheme, sub, by_model, p in scored:
+            tables.append(metric_table(sub, by_model, cfg, scheme))
+            if scheme != "site_type":  # per-fold figures (for site_type the folds are the type subsets)
+                tables.append(pd.DataFrame([
+                    {"scheme": scheme, "model": "site_model", "subset": f"fold:{f}",
+                     **point_metrics(g["label"], g["pred_site_model"])} for f, g in p.groupby("fold")]))
+        stage.note = f"{cfg.cv.bootstrap} resamples"
+    return CVResult(pd.concat(tables, ignore_index=True), pd.concat(preds, ignore_index=True), residuals)
 
 
 # ----------------------------------------------------------------------------- domain and intervals
@@ -353,8 +397,9 @@ def evaluate_holdout(reg: SiteRegressor, measurements: pd.DataFrame, cfg: RunCon
     strongest = molecule_predictions(prep.sites, site_pred)
     mols = _labels(prep)
     tmols = _labels(train_prep)
-    base = SiteRegressor(params=booster_params(cfg.model), per_kind=True, seed=cfg.seed)
-    base.fit(train_prep.mol_X[tmols["mol_id"]], tmols["label"].to_numpy(), tmols["kind"].to_numpy())
+    y, kinds = _molecule_labels(train_prep)
+    base = fit_many([FitJob(train_prep.mol_X, y, kinds, tmols["mol_id"].to_numpy())], booster_params(cfg.model),
+                    cfg.seed)[0]
     base_pred = np.full(len(prep.mol_X), np.nan)
     base_pred[mols["mol_id"]] = base.predict(prep.mol_X[mols["mol_id"]], mols["kind"].to_numpy())
     out = {"n_heldout": int(len(measurements)), "n_heldout_no_site": int(len(prep.table.rejects))}

@@ -18,6 +18,7 @@ from .config import Registry, RunConfig, load_registry
 from .curate import CurationResult, curate, format_summary
 from .ingest import PARSERS, parse_inhouse
 from .sources import PulledFile, default_mirror, pull
+from .stages import StageClock
 from .tables import write_json, write_table
 
 Log = Callable[[str], None]
@@ -86,6 +87,7 @@ class TrainOutputs:
     report: Path
     metrics: dict
     mlflow: dict | None
+    clock: StageClock | None = None
 
 
 def dataset_sha256(measurements: pd.DataFrame) -> str:
@@ -129,8 +131,13 @@ def _card(cfg: RunConfig, registry: Registry, measurements: pd.DataFrame, n_mole
 
 
 def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_artifacts: list[Path] = (),
-               registry: Registry | None = None, curation: dict | None = None, log: Log = _quiet) -> TrainOutputs:
-    """Site table -> features -> label re-assignment -> 3-scheme CV -> final model bundle -> MLflow."""
+               registry: Registry | None = None, curation: dict | None = None, log: Log = _quiet,
+               clock: StageClock | None = None) -> TrainOutputs:
+    """Site table -> features -> label re-assignment -> CV schemes -> final model bundle -> MLflow.
+
+    ``clock`` (a :class:`StageClock`) times each stage and prints a progress line per stage; give
+    one to include earlier stages (pull, curation) in the same table.
+    """
     from pkasite.features.sites import load_catalog
     from pkasite.models.calibration import ConformalCalibrator
     from pkasite.models.domain import similarity_bin
@@ -138,22 +145,27 @@ def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_
     from . import train as T
     from .bundle import ModelBundle, save_bundle
     from .report import write_report
-    from .tables import write_table
     from .tracking import code_version, log_training_run
 
     registry = registry or load_registry()
+    clock = clock or StageClock(log)
     t0 = time.monotonic()
     out_dir = Path(out_dir)
     fit_meas = T.split_filter(measurements, cfg.train.fit_splits)
-    prep = T.prepare(fit_meas, cfg, log)
-    moved = T.reassign_labels(prep, cfg, log)
-    cv = T.cross_validate(prep, cfg, log)
-    threshold = T.domain_threshold(cv.residuals, cfg.domain.target_rmse)
-    coverage = T.interval_coverage(cv.residuals, cfg.domain.interval_levels, cfg.seed, cfg.cv.folds)
-    res = cv.residuals.dropna(subset=["similarity"])
-    calibrator = ConformalCalibrator(levels=tuple(cfg.domain.interval_levels)).fit(
-        res["residual"].to_numpy(), similarity_bin(res["similarity"].to_numpy()))
-    final = T.fit_regressor(prep, np.arange(len(prep.table.molecules)), cfg)
+    with clock("site table + features") as stage:
+        prep = T.prepare(fit_meas, cfg)
+        stage.note = prep.summary()
+    moved = T.reassign_labels(prep, cfg, clock)
+    cv = T.cross_validate(prep, cfg, clock)
+    with clock("calibration + domain") as stage:
+        threshold = T.domain_threshold(cv.residuals, cfg.domain.target_rmse)
+        coverage = T.interval_coverage(cv.residuals, cfg.domain.interval_levels, cfg.seed, cfg.cv.folds)
+        res = cv.residuals.dropna(subset=["similarity"])
+        calibrator = ConformalCalibrator(levels=tuple(cfg.domain.interval_levels)).fit(
+            res["residual"].to_numpy(), similarity_bin(res["similarity"].to_numpy()))
+        stage.note = f"domain threshold {threshold:.2f}; " + ", ".join(f"{k} {v:.2f}" for k, v in coverage.items())
+    with clock("final fit"):
+        final = T.fit_regressor(prep, np.arange(len(prep.table.molecules)), cfg)
     lab = prep.sites["labeled"].to_numpy()
     kinds = prep.sites["kind"].to_numpy()
     support = prep.sites[lab].groupby(["kind", "site_type"]).size()
@@ -164,24 +176,23 @@ def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_
               "max_heavy_atoms": int(T.heavy_atom_counts(prep.table.mols).max())}
     heldout = None
     if cfg.train.eval_splits:
-        heldout = T.evaluate_holdout(final, T.split_filter(measurements, cfg.train.eval_splits), cfg, prep)
-        log("held-out: " + ", ".join(f"RMSE {k} {heldout[f'test_rmse_{k}']:.2f} (Morgan baseline "
-                                     f"{heldout[f'test_baseline_mol_morgan_rmse_{k}']:.2f})" for k in ("acid", "base")
-                                     if f"test_rmse_{k}" in heldout))
-    main_rows = cv.metrics[cv.metrics["subset"].isin(["overall", "kind:acid", "kind:base"])]
-    card = _card(cfg, registry, fit_meas, len(prep.table.molecules),
-                 main_rows.to_dict("records"), heldout, domain, coverage, code_version())
-    card["assignment"] = {**prep.table.assignment_stats(), "moved_per_round": moved}
-    bundle = ModelBundle(final, prep.settings, prep.site_types, load_catalog().version, calibrator, domain,
-                         {k: prep.bits[lab & (kinds == k)] for k in ("acid", "base")}, card, cv.residuals,
-                         cv.metrics, cv.predictions, curation)
-    bundle_path = save_bundle(bundle, out_dir / "model")
-    cv_metrics = write_table(cv.metrics, out_dir / "cv_metrics.csv")
-    cv_preds = write_table(cv.predictions, out_dir / "cv_predictions.parquet")
-    summary_path = write_json({"assignment": card["assignment"], "cv_seconds": cv.seconds,
-                               "interval_coverage": coverage, "domain_threshold": threshold, "heldout": heldout},
-                              out_dir / "train_summary.json")
-    report = write_report(bundle_path, out_dir / "report.html")
+        with clock("held-out evaluation") as stage:
+            heldout = T.evaluate_holdout(final, T.split_filter(measurements, cfg.train.eval_splits), cfg, prep)
+            stage.note = ", ".join(f"RMSE {k} {heldout[f'test_rmse_{k}']:.2f} (Morgan baseline "
+                                   f"{heldout[f'test_baseline_mol_morgan_rmse_{k}']:.2f})" for k in ("acid", "base")
+                                   if f"test_rmse_{k}" in heldout)
+    with clock("bundle + report") as stage:
+        main_rows = cv.metrics[cv.metrics["subset"].isin(["overall", "kind:acid", "kind:base"])]
+        card = _card(cfg, registry, fit_meas, len(prep.table.molecules),
+                     main_rows.to_dict("records"), heldout, domain, coverage, code_version())
+        card["assignment"] = {**prep.table.assignment_stats(), "moved_per_round": moved}
+        bundle = ModelBundle(final, prep.settings, prep.site_types, load_catalog().version, calibrator, domain,
+                             {k: prep.bits[lab & (kinds == k)] for k in ("acid", "base")}, card, cv.residuals,
+                             cv.metrics, cv.predictions, curation)
+        bundle_path = save_bundle(bundle, out_dir / "model")
+        cv_metrics = write_table(cv.metrics, out_dir / "cv_metrics.csv")
+        cv_preds = write_table(cv.predictions, out_dir / "cv_predictions.parquet")
+        report = write_report(bundle_path, out_dir / "report.html")
     metrics = {}
     for r in cv.metrics.itertuples():
         subset = r.subset.replace("kind:", "").replace(":", "_")  # MLflow metric names allow no colon
@@ -193,12 +204,16 @@ def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_
     if heldout:
         metrics.update({k: v for k, v in heldout.items() if isinstance(v, (int, float))})
     metrics["train_seconds"] = time.monotonic() - t0
-    log(f"training finished in {metrics['train_seconds']:.0f} s; bundle {bundle_path}")
+    summary = {"assignment": card["assignment"], "stages": clock.table().to_dict("records"),
+               "interval_coverage": coverage, "domain_threshold": threshold, "heldout": heldout}
+    summary_path = write_json(summary, out_dir / "train_summary.json")
     tracked = None
     if cfg.mlflow.enabled:
-        example = pd.DataFrame({"id": ["example-1", "example-2"], "smiles": ["OC(=O)c1ccccc1", "CN1CCCCC1"]})
-        tracked = log_training_run(cfg, metrics, [cv_metrics, cv_preds, summary_path, report, *extra_artifacts],
-                                   bundle_path, {"dataset_sha256": card["dataset_sha256"], "code_version": card["code_version"]},
-                                   example)
-        log(f"mlflow run {tracked['run_id']}; registered version {tracked['version']} (alias candidate)")
-    return TrainOutputs(bundle_path, cv_metrics, cv_preds, report, metrics, tracked)
+        with clock("mlflow logging") as stage:
+            example = pd.DataFrame({"id": ["example-1", "example-2"], "smiles": ["OC(=O)c1ccccc1", "CN1CCCCC1"]})
+            tracked = log_training_run(cfg, metrics, [cv_metrics, cv_preds, summary_path, report, *extra_artifacts],
+                                       bundle_path, {"dataset_sha256": card["dataset_sha256"],
+                                                     "code_version": card["code_version"]}, example)
+            stage.note = f"run {tracked['run_id']}; registered version {tracked['version']} (alias candidate)"
+    log(f"training finished in {time.monotonic() - t0:.0f} s; bundle {bundle_path}")
+    return TrainOutputs(bundle_path, cv_metrics, cv_preds, report, metrics, tracked, clock)

@@ -12,7 +12,8 @@ from pkasite.pipeline.config import RunConfig, load_config
 
 pytestmark = pytest.mark.slow
 
-SMALL = {"model.n_estimators": 80, "model.learning_rate": 0.1, "model.assignment_rounds": 1, "cv.folds": 3,
+SMALL = {"model.n_estimators": 80, "model.learning_rate": 0.1, "model.assignment_rounds": 1,
+         "model.assignment_n_estimators": None, "model.assignment_learning_rate": None, "cv.folds": 3,
          "cv.site_type_min_count": 60, "cv.bootstrap": 50}
 
 
@@ -105,3 +106,38 @@ def test_same_config_and_data_give_same_numbers(subset, tmp_path):
 def test_default_yaml_matches_schema_defaults():
     """configs/default.yaml states every default explicitly; it must agree with the schema."""
     assert load_config().model_dump() == RunConfig().model_dump()
+
+
+def test_assignment_rounds_stop_once_few_labels_move(subset, tmp_path):
+    from pkasite.pipeline import train as T
+    cfg = small_config(tmp_path, **{"model.assignment_rounds": 4, "model.assignment_stop_fraction": 1.0})
+    assert len(T.reassign_labels(T.prepare(subset, cfg), cfg)) == 1  # any round moves at most 100%
+    cfg = small_config(tmp_path, **{"model.assignment_rounds": 2, "model.assignment_stop_fraction": 0.0})
+    moved = T.reassign_labels(T.prepare(subset, cfg), cfg)
+    assert moved[0] > 0 and (len(moved) == 2 or moved[-1] == 0)
+
+
+def test_quick_training_from_the_cli_reports_each_stage(tmp_path, mirror):
+    import re
+
+    from click.testing import CliRunner
+
+    from conftest import DATA, REPO
+    from pkasite.pipeline.cli import main
+    out = tmp_path / "quick"
+    res = CliRunner().invoke(main, ["train", "--quick", "--no-mlflow", "--extra-only", "--extra",
+                                    str(REPO / "examples" / "inhouse_series_invented.csv"), "--config",
+                                    str(DATA / "small_config.yaml"), "--mirror", str(mirror), "-o", str(out)])
+    assert res.exit_code == 0, res.output
+    cv = pd.read_csv(out / "cv_metrics.csv")
+    assert set(cv["scheme"]) == {"molecule"} and set(cv["model"]) == {"site_model", "site_model_strongest"}
+    assert (out / "report.html").stat().st_size > 10_000
+    stages = re.findall(r"^\[\s*([0-9.]+) s\] ([a-z +0-9-]+)", res.output, re.M)
+    names = [name.strip() for _, name in stages]
+    assert names[:3] == ["pull", "curation", "site table + features"]
+    assert "cv molecule" in names and "final fit" in names and "bundle + report" in names
+    elapsed = [float(t) for t, _ in stages]
+    assert elapsed == sorted(elapsed)
+    summary = json.loads((out / "train_summary.json").read_text())
+    assert {s["stage"] for s in summary["stages"]} >= {"curation", "cv molecule", "final fit"}
+    assert sum(s["fits"] for s in summary["stages"]) >= 2 * 3 + 2  # CV folds of the acid and base models, final fit

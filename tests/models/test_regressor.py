@@ -1,0 +1,48 @@
+"""Parallel booster fitting: same numbers whatever the pool size, only the kinds asked for."""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from pkasite.models.regressor import BoosterParams, FitJob, SiteRegressor, boosters_fitted, fit_many
+
+PARAMS = BoosterParams(n_estimators=40, learning_rate=0.1, num_leaves=8, min_child_samples=5)
+
+
+def _data(n=400, seed=0):
+    rng = np.random.default_rng(seed)
+    X = rng.normal(size=(n, 12)).astype(np.float32)
+    kinds = np.where(rng.random(n) < 0.5, "acid", "base")
+    y = 3 * X[:, 0] - 2 * X[:, 1] * (kinds == "acid") + rng.normal(0, 0.3, n)
+    return X, y, kinds
+
+
+def test_pool_size_does_not_change_the_numbers():
+    X, y, kinds = _data()
+    folds = [np.arange(0, 300), np.arange(100, 400), np.arange(0, 400, 2)]
+    jobs = [FitJob(X, y, kinds, rows) for rows in folds]
+    serial = fit_many(jobs, PARAMS, seed=3, workers=1)
+    pooled = fit_many(jobs, PARAMS, seed=3, workers=2)
+    for a, b in zip(serial, pooled):
+        assert a.predict(X, kinds) == pytest.approx(b.predict(X, kinds), abs=0)
+
+
+def test_fit_many_fits_only_the_kinds_needed_and_counts_them():
+    X, y, kinds = _data()
+    before = boosters_fitted()
+    regs = fit_many([FitJob(X, y, kinds, only_kinds=frozenset({"acid"})), FitJob(X, y, kinds, per_kind=False)],
+                    PARAMS, workers=2)
+    assert set(regs[0].boosters_) == {"acid"} and set(regs[1].boosters_) == {"all"}
+    assert boosters_fitted() - before == 2
+    base_rows = kinds == "base"
+    assert np.isnan(regs[0].predict(X[base_rows], kinds[base_rows])).all()
+
+
+def test_learns_the_signal_and_refuses_empty_training_sets():
+    X, y, kinds = _data(seed=1)
+    reg = SiteRegressor(params=BoosterParams(n_estimators=300, learning_rate=0.05, num_leaves=8,
+                                             min_child_samples=5)).fit(X[:300], y[:300], kinds[:300])
+    err = reg.predict(X[300:], kinds[300:]) - y[300:]
+    assert np.sqrt(np.mean(err ** 2)) < 0.5 * np.std(y[300:])
+    with pytest.raises(ValueError, match="no kind has enough training rows"):
+        SiteRegressor(params=PARAMS).fit(X[:1], y[:1], kinds[:1])
