@@ -14,9 +14,8 @@ Runs:
   published  configs/published_split.yaml: fit on the publishers' training files, test once on
              their test files (target: test RMSE <= 1.2 per kind, molecule's predicted constant)
 
-`--ablation` trains on the published training files with molecule-grouped CV and evaluates once
-on the published test files for each variant (feature groups off in turn, booster settings);
-see features/FEATURES.md for the table it printed.
+`--ablation` runs bench/ablation.py: on the published split, each feature group off in turn and
+other training choices, value-free figures; features/FEATURES.md holds the table it printed.
 
 Run on an otherwise idle machine (`uptime`): LightGBM slows down badly when cores are shared.
 """
@@ -119,12 +118,9 @@ def main() -> None:
     sets = {k: yaml.safe_load(v) for k, v in (item.split("=", 1) for item in args.sets)}
     results = []
     if args.ablation:
-        from ablation import VARIANTS, print_ablation  # bench/ablation.py
-        for label, overrides in VARIANTS:
-            results.append({**measure("published", mirror, {**sets, **overrides, "cv.schemes": ["molecule"],
-                                                            "cv.baselines": False, "mlflow.enabled": False}),
-                            "label": label})
-        print_ablation(results)
+        sys.path.insert(0, str(Path(__file__).parent))
+        import ablation  # bench/ablation.py
+        ablation.run(mirror)
     else:
         for name in args.runs.split(","):
             results.append(measure(name, mirror, sets))

@@ -5,6 +5,13 @@ LightGBM booster scales poorly over threads, so :func:`fit_many` runs independen
 side by side, one thread each, in a thread pool sized to the cores (LightGBM releases the
 GIL while it trains).  With ``deterministic`` set, a booster's trees do not depend on its
 thread count, so the numbers are the same whatever the pool size.
+
+Censored rows.  A molecule's measured acid constant belongs to its most acidic site, so every
+other acid site of that molecule has a site pKa at or above the value (a base constant: every
+other base site at or below it).  Such rows carry a one-sided bound instead of a label
+(``FitJob.bound``): the squared error counts only when the prediction crosses the bound (a
+censored, Tobit-like squared loss).  This teaches the model the sites that carry no label,
+which is what decides the molecule's predicted constant when it has several sites.
 """
 from __future__ import annotations
 
@@ -54,8 +61,10 @@ class BoosterParams:
 class FitJob:
     """One regressor to fit: the rows ``rows`` of ``X`` (all rows when None), their labels and kinds.
 
-    ``y`` and ``kinds`` are indexed like ``X``.  ``per_kind``: one booster per kind (else one shared
-    booster); ``only_kinds`` limits per-kind fitting to the kinds that will be predicted.
+    ``y``, ``kinds`` and ``bound`` are indexed like ``X``.  ``per_kind``: one booster per kind (else one
+    shared booster); ``only_kinds`` limits per-kind fitting to the kinds that will be predicted.
+    ``bound`` (optional, int8): 0 where ``y`` is the label, +1 where ``y`` is a lower bound of the
+    target (the prediction should not fall below it), -1 where it is an upper bound.
     """
 
     X: np.ndarray
@@ -64,6 +73,22 @@ class FitJob:
     rows: np.ndarray | None = None
     per_kind: bool = True
     only_kinds: frozenset | None = None
+    bound: np.ndarray | None = None
+
+
+def censored_squared_objective(y: np.ndarray, bound: np.ndarray):
+    """LightGBM objective: squared error on labels, and on bounds only where the prediction crosses them."""
+    y = np.asarray(y, float)
+    bound = np.asarray(bound, float)
+    exact = bound == 0
+
+    def objective(pred: np.ndarray, _data) -> tuple[np.ndarray, np.ndarray]:
+        r = pred - y
+        active = exact | (bound * r < 0)
+        # inactive rows get a tiny hessian so that a leaf of only satisfied bounds stays at zero
+        return np.where(active, r, 0.0), np.where(active, 1.0, 1e-3)
+
+    return objective
 
 
 _fits_lock = threading.Lock()
@@ -75,14 +100,23 @@ def boosters_fitted() -> int:
     return _fits_done
 
 
-def _train_booster(X: np.ndarray, rows: np.ndarray, y: np.ndarray, params: dict) -> lgb.Booster:
+def _train_booster(X: np.ndarray, rows: np.ndarray, y: np.ndarray, bound: np.ndarray | None,
+                   params: dict) -> tuple[lgb.Booster, float]:
+    """One booster and its offset (the start score, added to every prediction)."""
     global _fits_done
-    data = lgb.Dataset(np.asarray(X[rows], np.float32), np.asarray(y[rows], float), free_raw_data=True,
-                       params={"verbosity": -1})
-    booster = lgb.train(params, data)
+    yy = np.asarray(y[rows], float)
+    if bound is None or not np.any(bound[rows]):
+        data = lgb.Dataset(np.asarray(X[rows], np.float32), yy, free_raw_data=True, params={"verbosity": -1})
+        booster, offset = lgb.train(params, data), 0.0
+    else:
+        b = np.asarray(bound[rows])
+        offset = float(np.mean(yy[b == 0])) if np.any(b == 0) else float(np.mean(yy))
+        data = lgb.Dataset(np.asarray(X[rows], np.float32), yy, init_score=np.full(len(rows), offset),
+                           free_raw_data=True, params={"verbosity": -1})
+        booster = lgb.train({**params, "objective": censored_squared_objective(yy, b)}, data)
     with _fits_lock:
         _fits_done += 1
-    return booster
+    return booster, offset
 
 
 def fit_many(jobs: list[FitJob], params: BoosterParams, seed: int = 42,
@@ -109,7 +143,7 @@ def fit_many(jobs: list[FitJob], params: BoosterParams, seed: int = 42,
 
     def run(i: int) -> None:
         j, _, sel = tasks[i]
-        boosters[i] = _train_booster(jobs[j].X, sel, jobs[j].y, lgb_params)
+        boosters[i] = _train_booster(jobs[j].X, sel, jobs[j].y, jobs[j].bound, lgb_params)
 
     if workers == 1:
         for i in order:
@@ -118,8 +152,9 @@ def fit_many(jobs: list[FitJob], params: BoosterParams, seed: int = 42,
         with ThreadPoolExecutor(workers, thread_name_prefix="pkasite-fit") as pool:
             list(pool.map(run, order))
     regs = [SiteRegressor(params=params, per_kind=job.per_kind, seed=seed) for job in jobs]
-    for (j, key, _), booster in zip(tasks, boosters):
+    for (j, key, _), (booster, offset) in zip(tasks, boosters):
         regs[j].boosters_[key] = booster
+        regs[j].offsets_[key] = offset
     return regs
 
 
@@ -135,12 +170,16 @@ class SiteRegressor:
     per_kind: bool = True
     seed: int = 42
     boosters_: dict = field(default_factory=dict, init=False, repr=False)
+    offsets_: dict = field(default_factory=dict, init=False, repr=False)
 
-    def fit(self, X: np.ndarray, y: np.ndarray, kinds: np.ndarray, only_kinds=None) -> "SiteRegressor":
-        """Fit the booster(s); ``only_kinds`` limits per-kind fitting to the kinds that will be predicted."""
+    def fit(self, X: np.ndarray, y: np.ndarray, kinds: np.ndarray, only_kinds=None,
+            bound: np.ndarray | None = None) -> "SiteRegressor":
+        """Fit the booster(s); ``only_kinds`` limits per-kind fitting to the kinds that will be predicted,
+        ``bound`` marks rows whose ``y`` is a one-sided bound (see :class:`FitJob`)."""
         job = FitJob(X, np.asarray(y, float), np.asarray(kinds), per_kind=self.per_kind,
-                     only_kinds=frozenset(only_kinds) if only_kinds is not None else None)
-        self.boosters_ = fit_many([job], self.params, self.seed)[0].boosters_
+                     only_kinds=frozenset(only_kinds) if only_kinds is not None else None, bound=bound)
+        fitted = fit_many([job], self.params, self.seed)[0]
+        self.boosters_, self.offsets_ = fitted.boosters_, fitted.offsets_
         return self
 
     def _check_fitted(self):
@@ -157,6 +196,11 @@ class SiteRegressor:
             mask = (kinds == key) if self.per_kind else np.ones(len(X), bool)
             if mask.any():
                 out[mask] = booster.predict(X[mask], pred_contrib=contrib)
+                offset = self.offsets_.get(key, 0.0)
+                if contrib:
+                    out[mask, -1] += offset  # the bias column carries the start score
+                else:
+                    out[mask] += offset
         return out
 
     def to_strings(self) -> dict[str, str]:
@@ -165,7 +209,8 @@ class SiteRegressor:
 
     @classmethod
     def from_strings(cls, models: dict[str, str], per_kind: bool, seed: int = 42,
-                     params: BoosterParams | None = None) -> "SiteRegressor":
+                     params: BoosterParams | None = None, offsets: dict | None = None) -> "SiteRegressor":
         reg = cls(params=params or BoosterParams(), per_kind=per_kind, seed=seed)
         reg.boosters_ = {k: lgb.Booster(model_str=s) for k, s in models.items()}
+        reg.offsets_ = {k: float(v) for k, v in (offsets or {}).items()}
         return reg

@@ -58,6 +58,7 @@ def save_bundle(bundle: ModelBundle, target: Path) -> Path:
         for key, text in bundle.regressor.to_strings().items():
             (tmp / f"booster_{key}.txt").write_text(text)
         config = {"format": BUNDLE_FORMAT, "per_kind": bundle.regressor.per_kind, "seed": bundle.regressor.seed,
+                  "offsets": bundle.regressor.offsets_,
                   "features": bundle.settings.to_dict(), "site_types": bundle.site_types,
                   "catalog_version": bundle.catalog_version, "calibrator": bundle.calibrator.to_dict(),
                   "domain": bundle.domain}
@@ -110,7 +111,8 @@ def load_bundle(path: Path) -> ModelBundle:
     verify_bundle(path)
     config = json.loads((path / "config.json").read_text())
     boosters = {p.stem.removeprefix("booster_"): p.read_text() for p in sorted(path.glob("booster_*.txt"))}
-    reg = SiteRegressor.from_strings(boosters, per_kind=config["per_kind"], seed=config["seed"])
+    reg = SiteRegressor.from_strings(boosters, per_kind=config["per_kind"], seed=config["seed"],
+                                     offsets=config.get("offsets"))
     with np.load(path / "train_bits.npz", allow_pickle=False) as npz:
         kinds = [k for k in npz.files if not k.endswith("__width")]
         bits = {k: np.unpackbits(npz[k], axis=1)[:, : int(npz[f"{k}__width"][0])] for k in kinds}

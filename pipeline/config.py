@@ -98,6 +98,7 @@ class FeaturesConfig(_Strict):
 
 class _ModelSettings(_Strict):
     per_kind: bool = True
+    censored_sites: bool = True      # a molecule's other sites of the kind enter training as one-sided bounds
     assignment_rounds: int = 3       # at most this many label re-assignment rounds (0: keep catalog priors)
     assignment_stop_fraction: float = Field(0.01, ge=0, le=1)  # stop once at most this share of labels moves
     assignment_n_estimators: int | None = 250      # cheaper boosters for the assignment rounds

@@ -192,7 +192,7 @@ def _phrase(key: str, v: dict[str, float], site: str, site_type: str) -> str:
         s = v.get("ind_charge_sum", 0.0)
         return "no other charged group" if abs(s) < 1e-6 else f"charged group elsewhere (field {s:+.2f})"
     if key == "chg":
-        return f"partial charge of the site group ({v.get('chg_group', 0.0):+.2f})"
+        return f"partial charge of the site group, set by the electronegativity of its neighbours ({v.get('chg_group', 0.0):+.2f})"
     if key == "hb":
         if v.get("hb_ring6_7"):
             return "H-bond acceptor placed to close a 6/7-ring with the site"

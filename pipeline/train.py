@@ -8,7 +8,7 @@ a molecule-level baseline evaluated on the same folds.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import pandas as pd
@@ -116,12 +116,38 @@ def make_splits(prep: Prepared, scheme: str, cfg: RunConfig) -> list[tuple[str, 
 
 # ----------------------------------------------------------------------------- fitting
 
-def site_job(prep: Prepared, train_mols: np.ndarray, cfg: RunConfig, only_kinds=None) -> FitJob:
-    """The site regressor of one training set: the labeled sites of ``train_mols``."""
+def site_bounds(prep: Prepared) -> np.ndarray:
+    """Per site row: +1 (acid) / -1 (base) where the molecule's value bounds the site, else 0.
+
+    A molecule's value is normally its strongest constant of the kind, so its other candidate
+    sites are at least as weak: the value is a lower bound of an acid site's pKa and an upper
+    bound of a base site's pKaH.  Compilations also list later constants (a phenol's 10 beside a
+    carboxylic acid), so a bound is set only where the site's catalog range can hold it (an acid
+    site whose range reaches up to the value, a base site whose range reaches down to it), and
+    never for molecules measured at an explicit site atom.  Labeled sites are 0.
+    """
     sites = prep.sites
-    rows = np.flatnonzero(sites["labeled"].to_numpy() & np.isin(sites["mol_id"].to_numpy(), train_mols))
+    by_name = load_catalog().by_name
+    explicit = prep.table.molecules["site_atom"].notna().to_numpy()[sites["mol_id"].to_numpy()]
+    acid = sites["kind"].to_numpy() == "acid"
+    label = sites["label"].to_numpy()
+    types = sites["site_type"].to_numpy()
+    low = np.array([by_name[t].low for t in types])
+    high = np.array([by_name[t].high for t in types])
+    possible = np.where(acid, label <= high, label >= low)
+    censored = ~sites["labeled"].to_numpy() & ~explicit & possible
+    return np.where(censored, np.where(acid, 1, -1), 0).astype(np.int8)
+
+
+def site_job(prep: Prepared, train_mols: np.ndarray, cfg: RunConfig, only_kinds=None) -> FitJob:
+    """The site regressor of one training set: the labeled sites of ``train_mols`` and, with
+    ``model.censored_sites``, their other candidate sites as one-sided bounds (:func:`site_bounds`)."""
+    sites = prep.sites
+    in_train = np.isin(sites["mol_id"].to_numpy(), train_mols)
+    bound = site_bounds(prep) if cfg.model.censored_sites else np.zeros(len(sites), np.int8)
+    rows = np.flatnonzero(in_train & (sites["labeled"].to_numpy() | (bound != 0)))
     return FitJob(prep.X, sites["label"].to_numpy(), sites["kind"].to_numpy(), rows, cfg.model.per_kind,
-                  frozenset(only_kinds) if only_kinds is not None else None)
+                  frozenset(only_kinds) if only_kinds is not None else None, bound)
 
 
 def fit_regressor(prep: Prepared, train_mols: np.ndarray, cfg: RunConfig, only_kinds=None) -> SiteRegressor:
@@ -132,10 +158,21 @@ def _test_rows(prep: Prepared, test_mols: np.ndarray) -> np.ndarray:
     return np.flatnonzero(np.isin(prep.sites["mol_id"].to_numpy(), test_mols))
 
 
-def site_jobs(prep: Prepared, splits, cfg: RunConfig) -> list[FitJob]:
-    """One site-regressor job per fold, fitting only the kinds its test molecules need."""
+def site_jobs(prep: Prepared, splits, cfg: RunConfig, unseen_type: bool = False) -> list[FitJob]:
+    """One site-regressor job per fold, fitting only the kinds its test molecules need.
+
+    ``unseen_type`` (leave-one-site-type-out, fold names are site types): the held-out type stays
+    out of training altogether, its one-sided bounds in other molecules included.
+    """
     kinds = prep.sites["kind"].to_numpy()
-    return [site_job(prep, tr, cfg, only_kinds=set(kinds[_test_rows(prep, te)])) for _, tr, te in splits]
+    types = prep.sites["site_type"].to_numpy()
+    jobs = []
+    for name, tr, te in splits:
+        job = site_job(prep, tr, cfg, only_kinds=set(kinds[_test_rows(prep, te)]))
+        if unseen_type:
+            job = replace(job, rows=job.rows[types[job.rows] != name])
+        jobs.append(job)
+    return jobs
 
 
 def site_oof(prep: Prepared, splits, regs: list[SiteRegressor], with_similarity: bool = False):
@@ -313,7 +350,8 @@ def cross_validate(prep: Prepared, cfg: RunConfig, clock: StageClock | None = No
     for scheme in cfg.cv.schemes:
         with clock(f"cv {scheme}" + (" + baselines" if cfg.cv.baselines else "")) as stage:
             splits = make_splits(prep, scheme, cfg)
-            jobs = site_jobs(prep, splits, cfg) + (morgan_jobs(prep, splits) if cfg.cv.baselines else [])
+            jobs = (site_jobs(prep, splits, cfg, unseen_type=(scheme == "site_type"))
+                    + (morgan_jobs(prep, splits) if cfg.cv.baselines else []))
             regs = fit_many(jobs, booster_params(cfg.model), cfg.seed)
             site_pred, fold, sim = site_oof(prep, splits, regs[:len(splits)], with_similarity=(scheme == "molecule"))
             by_model = {"site_model": labeled_site_predictions(prep.sites, site_pred),

@@ -124,8 +124,12 @@ def _card(cfg: RunConfig, registry: Registry, measurements: pd.DataFrame, n_mole
                         + ", ".join(f"{k} {v:.2f}" for k, v in coverage.items()) + "."),
         "limitations": ["Sites are treated as independent when macroscopic constants and charge are derived; "
                         "interactions between nearby sites (e.g. the second constant of a diacid) are not modelled.",
-                        "Training labels are molecule-level constants attached to one site; other sites of a "
-                        "molecule are learned only through similar molecules.",
+                        "Training labels are molecule-level constants attached to one site; the other sites of "
+                        "a measured molecule enter training only as one-sided bounds (at least as weak as the "
+                        "value) where their site type can hold it.",
+                        "A site type the training data never labels is extrapolated from related types and the "
+                        "bounds its sites got in other molecules; the leave-one-site-type-out figures show how "
+                        "far off that can be.",
                         "Tautomers are predicted as drawn."],
     }
 

@@ -46,3 +46,26 @@ def test_learns_the_signal_and_refuses_empty_training_sets():
     assert np.sqrt(np.mean(err ** 2)) < 0.5 * np.std(y[300:])
     with pytest.raises(ValueError, match="no kind has enough training rows"):
         SiteRegressor(params=PARAMS).fit(X[:1], y[:1], kinds[:1])
+
+
+def test_censored_rows_push_only_where_the_prediction_crosses_the_bound():
+    rng = np.random.default_rng(2)
+    x = rng.uniform(0, 10, 600)
+    X = x[:, None].astype(np.float32)
+    y = x.copy()                       # labeled rows: target = x
+    kinds = np.full(600, "acid")
+    lab = np.arange(600) < 300
+    params = BoosterParams(n_estimators=150, learning_rate=0.1, num_leaves=8, min_child_samples=5)
+    plain = SiteRegressor(params=params).fit(X[lab], y[lab], kinds[lab])
+    grid = np.linspace(0.5, 9.5, 19)[:, None].astype(np.float32)
+    base = plain.predict(grid, np.full(19, "acid"))
+    # lower bounds far below the function are satisfied: the fit must not move
+    low = np.where(lab, y, x - 5)
+    bound = np.where(lab, 0, 1).astype(np.int8)
+    satisfied = SiteRegressor(params=params).fit(X, low, kinds, bound=bound).predict(grid, np.full(19, "acid"))
+    assert satisfied == pytest.approx(base, abs=0.3)
+    # lower bounds above the function on x > 5 (and only there) pull those predictions up
+    high = np.where(lab, y, np.where(x > 5, x + 3, x - 5))
+    pulled = SiteRegressor(params=params).fit(X, high, kinds, bound=bound).predict(grid, np.full(19, "acid"))
+    right, left = grid[:, 0] > 6, grid[:, 0] < 4
+    assert np.all(pulled[right] > base[right] + 0.5) and pulled[left] == pytest.approx(base[left], abs=0.3)

@@ -141,3 +141,28 @@ def test_quick_training_from_the_cli_reports_each_stage(tmp_path, mirror):
     summary = json.loads((out / "train_summary.json").read_text())
     assert {s["stage"] for s in summary["stages"]} >= {"curation", "cv molecule", "final fit"}
     assert sum(s["fits"] for s in summary["stages"]) >= 2 * 3 + 2  # CV folds of the acid and base models, final fit
+
+
+def test_other_sites_are_bounded_only_where_their_type_can_hold_the_value():
+    """Values from memory of the CRC Handbook: 4-hydroxybenzoic acid pKa 4.54 (COOH) and 9.3 (phenol);
+    piperazine pKaH 9.73; ethylenediamine pKaH 9.9."""
+    from pkasite.pipeline import train as T
+    meas = pd.DataFrame({
+        "record_id": ["hba-1", "hba-2", "pip", "en-site"],
+        "smiles": ["OC(=O)c1ccc(O)cc1", "OC(=O)c1ccc(O)cc1", "C1CNCCN1", "NCCN"],
+        "inchikey": ["A", "A", "B", "C"], "kind": ["acid", "acid", "base", "base"],
+        "pka": [4.54, 9.3, 9.73, 9.9], "site_atom": [None, None, None, 0], "source": "test", "split": ""})
+    prep = T.prepare(meas, load_config())
+    s = prep.sites.assign(bound=T.site_bounds(prep))
+    el = {a.GetIdx(): a.GetSymbol() for a in prep.table.mols[0].GetAtoms()}
+    first = s[s.mol_id == 0].assign(el=lambda d: d.atom.map(el))
+    # 4.54 belongs to the carboxylic acid; the phenol O-H must then be at least as weak
+    assert first.set_index("site_type").loc["carboxylic_acid", ["labeled", "bound"]].tolist() == [True, 0]
+    assert first.set_index("site_type").loc["phenol", ["labeled", "bound"]].tolist() == [False, 1]
+    # 9.3 is the phenol's (second) constant: a carboxylic acid cannot be as weak as 9.3, so no bound on it
+    second = s[s.mol_id == 1].set_index("site_type")
+    assert second.loc["phenol", "labeled"] and second.loc["carboxylic_acid", "bound"] == 0
+    # piperazine: the other N is at most as basic as the measured constant
+    assert sorted(s[s.mol_id == 2]["bound"]) == [-1, 0]
+    # a value measured at an explicit site says nothing about the other site
+    assert (s[s.mol_id == 3]["bound"] == 0).all()
