@@ -136,7 +136,8 @@ class Bench:
         from pkasite.models.metrics import bootstrap_metrics
         T = self.T
         mols = T._labels(prep)
-        strongest = T.molecule_predictions(prep.sites, site_pred)[mols["mol_id"].to_numpy()]
+        from pkasite.pipeline.evaluation import constants_by_mol
+        strongest = constants_by_mol(prep.table, site_pred)[mols["mol_id"].to_numpy()]
         out = {}
         for kind in ("acid", "base", "all"):
             m = (mols["kind"] == kind).to_numpy() if kind != "all" else np.ones(len(mols), bool)

@@ -63,7 +63,8 @@ def one_run(name: str, mirror: Path, overrides: dict, out_json: Path) -> None:
         result = {"name": name, "total_seconds": total, "stages": clock.table().to_dict("records"),
                   "peak_rss_mb": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024,
                   "cv": main[["scheme", "model", "subset", "n", "rmse", "rmse_low", "rmse_high"]].to_dict("records"),
-                  "test": {k: v for k, v in out.metrics.items() if k.startswith("test_")}}
+                  "test": {k: v for k, v in out.metrics.items() if "test_" in k},
+                  "coverage": pd.read_parquet(out.bundle / "interval_coverage.parquet").to_dict("records")}
     out_json.write_text(json.dumps(result, default=float))
 
 
@@ -88,13 +89,21 @@ def print_run(r: dict) -> None:
         print(cv.pivot_table(index=["scheme", "model"], columns="subset", values="rmse (95% CI)",
                              aggfunc="first").to_string())
     if r["test"]:
-        print("held-out test (published test files):")
+        t = r["test"]
+        print("held-out test (published test files), value-free unless marked:")
         for kind in ("acid", "base"):
-            t = r["test"]
             if f"test_n_{kind}" in t:
-                print(f"  {kind} n={t[f'test_n_{kind}']}: " + ", ".join(
-                    f"{k.removeprefix('test_').removesuffix('_' + kind)} {v:.3f}" for k, v in t.items()
-                    if k.endswith(f"_{kind}") and "rmse" in k))
+                print(f"  {kind} n={t[f'test_n_{kind}']}: RMSE {t[f'test_rmse_{kind}']:.3f} "
+                      f"({t[f'test_rmse_low_{kind}']:.3f}-{t[f'test_rmse_high_{kind}']:.3f}), Morgan baseline "
+                      f"{t[f'baseline_mol_morgan_test_rmse_{kind}']:.3f}, site attribution check (diagnostic) "
+                      f"{t[f'site_attribution_check_test_rmse_{kind}']:.3f}")
+    if r.get("coverage"):
+        cov = pd.DataFrame(r["coverage"])
+        cov["observed (95% CI)"] = cov.apply(
+            lambda x: f"{x.observed:.3f} ({x.observed_low:.3f}-{x.observed_high:.3f})", axis=1)
+        print("interval coverage on data the calibration never saw")
+        print(cov.pivot_table(index=["where", "level", "kind"], columns="nominal", values="observed (95% CI)",
+                              aggfunc="first").to_string())
 
 
 def main() -> None:

@@ -208,7 +208,8 @@ class Progress:
             print(file=sys.stderr)
 
 
-_FLOAT = ("acid_pka", "base_pka", "charge_at_ph", "fraction_neutral", "pka", "pka_low", "pka_high", "similarity")
+_FLOAT = ("acid_pka", "acid_pka_low", "acid_pka_high", "base_pka", "base_pka_low", "base_pka_high", "charge_at_ph",
+          "fraction_neutral", "pka", "pka_low", "pka_high", "similarity")
 
 
 def _arrow_schema(columns: list[str]) -> pa.Schema:

@@ -42,6 +42,8 @@ class ModelBundle:
     cv_metrics: pd.DataFrame | None = None      # for the validation report
     cv_predictions: pd.DataFrame | None = None
     curation: dict | None = None
+    molecule_calibrator: ConformalCalibrator | None = None   # intervals of the molecule's constants
+    coverage: pd.DataFrame | None = None                      # interval coverage checks (where, level, kind, ...)
     path: Path | None = None
 
 
@@ -61,6 +63,8 @@ def save_bundle(bundle: ModelBundle, target: Path) -> Path:
                   "offsets": bundle.regressor.offsets_,
                   "features": bundle.settings.to_dict(), "site_types": bundle.site_types,
                   "catalog_version": bundle.catalog_version, "calibrator": bundle.calibrator.to_dict(),
+                  "molecule_calibrator": (bundle.molecule_calibrator.to_dict()
+                                          if bundle.molecule_calibrator is not None else None),
                   "domain": bundle.domain}
         (tmp / "config.json").write_text(json.dumps(config, indent=2, sort_keys=True))
         np.savez_compressed(tmp / "train_bits.npz",
@@ -71,6 +75,8 @@ def save_bundle(bundle: ModelBundle, target: Path) -> Path:
             bundle.cv_metrics.to_parquet(tmp / "cv_metrics.parquet", index=False)
         if bundle.cv_predictions is not None:
             bundle.cv_predictions.to_parquet(tmp / "cv_predictions.parquet", index=False)
+        if bundle.coverage is not None:
+            bundle.coverage.to_parquet(tmp / "interval_coverage.parquet", index=False)
         if bundle.curation is not None:
             (tmp / "curation_summary.json").write_text(json.dumps(bundle.curation, indent=2, sort_keys=True))
         card = {**bundle.card, "files": {p.name: _sha256(p) for p in sorted(tmp.iterdir())}}
@@ -123,7 +129,10 @@ def load_bundle(path: Path) -> ModelBundle:
         residuals=pd.read_parquet(path / "cv_residuals.parquet"),
         cv_metrics=_optional(path / "cv_metrics.parquet", pd.read_parquet),
         cv_predictions=_optional(path / "cv_predictions.parquet", pd.read_parquet),
-        curation=_optional(path / "curation_summary.json", lambda p: json.loads(p.read_text())), path=path)
+        curation=_optional(path / "curation_summary.json", lambda p: json.loads(p.read_text())),
+        molecule_calibrator=(ConformalCalibrator.from_dict(config["molecule_calibrator"])
+                             if config.get("molecule_calibrator") else None),
+        coverage=_optional(path / "interval_coverage.parquet", pd.read_parquet), path=path)
 
 
 def _optional(path: Path, read):
@@ -141,15 +150,42 @@ def render_model_card(card: dict) -> str:
     for src in card.get("sources", []):
         lines.append(f"- **{src['name']}** ({src['licence']}): {src['citation']}")
     lines += ["", f"Measurements: {card.get('n_measurements')}; molecules with a site: {card.get('n_molecules')}; "
-              f"dataset sha256: `{card.get('dataset_sha256')}`", "", "## Cross-validation (molecule level)", "",
+              f"dataset sha256: `{card.get('dataset_sha256')}`", ""]
+    if card.get("how_measured"):
+        lines += ["## How these figures were measured", "", card["how_measured"], ""]
+    lines += ["## Cross-validation (value-free: the molecule's predicted constant against its value)", "",
               "| scheme | model | subset | n | RMSE | 95% CI | MAE | R2 |", "|---|---|---|---|---|---|---|---|"]
-    for row in card.get("cv_summary", []):
-        lines.append(f"| {row['scheme']} | {row['model']} | {row['subset']} | {row['n']} | {row['rmse']:.2f} | "
-                     f"{row.get('rmse_low', float('nan')):.2f}-{row.get('rmse_high', float('nan')):.2f} | "
-                     f"{row['mae']:.2f} | {row['r2']:.2f} |")
-    if card.get("heldout"):
-        lines += ["", "## Held-out evaluation", ""] + [f"- {k}: {v:.3f}" if isinstance(v, float) else f"- {k}: {v}"
-                                                          for k, v in sorted(card["heldout"].items())]
+
+    def row_md(row):
+        return (f"| {row['scheme']} | {row['model']} | {row['subset']} | {row['n']} | {row['rmse']:.2f} | "
+                f"{row.get('rmse_low', float('nan')):.2f}-{row.get('rmse_high', float('nan')):.2f} | "
+                f"{row['mae']:.2f} | {row['r2']:.2f} |")
+    rows = card.get("cv_summary", [])
+    lines += [row_md(r) for r in rows if r["model"] != "site_attribution_check"]
+    diag = [r for r in rows if r["model"] == "site_attribution_check"]
+    if diag:
+        lines += ["", "Diagnostic, not a headline: the site attribution check compares the value with the prediction "
+                  "at the site it was attached to, a site chosen with the value itself, so it is optimistic.", "",
+                  "| scheme | model | subset | n | RMSE | 95% CI | MAE | R2 |", "|---|---|---|---|---|---|---|---|"]
+        lines += [row_md(r) for r in diag]
+    held = card.get("heldout") or {}
+    if held:
+        lines += ["", "## Held-out evaluation (value-free)", ""]
+        for kind in ("acid", "base"):
+            if f"test_rmse_{kind}" in held:
+                lines.append(f"- {kind}: n {held.get(f'test_n_{kind}')}, RMSE {held[f'test_rmse_{kind}']:.3f} "
+                             f"(95% CI {held.get(f'test_rmse_low_{kind}', float('nan')):.3f}-"
+                             f"{held.get(f'test_rmse_high_{kind}', float('nan')):.3f}), MAE "
+                             f"{held[f'test_mae_{kind}']:.3f}; Morgan baseline RMSE "
+                             f"{held.get(f'baseline_mol_morgan_test_rmse_{kind}', float('nan')):.3f}; site "
+                             f"attribution check (diagnostic) RMSE "
+                             f"{held.get(f'site_attribution_check_test_rmse_{kind}', float('nan')):.3f}")
+    cov = card.get("interval_coverage") or []
+    if isinstance(cov, list) and cov:
+        lines += ["", "## Interval coverage on data the calibration never saw", "",
+                  "| where | interval | kind | nominal | observed | 95% CI | n |", "|---|---|---|---|---|---|---|"]
+        lines += [f"| {r['where']} | {r['level']} | {r['kind']} | {r['nominal']:.2f} | {r['observed']:.3f} | "
+                  f"{r['observed_low']:.3f}-{r['observed_high']:.3f} | {r['n']} |" for r in cov]
     lines += ["", "## Applicability domain and intervals", "", card.get("domain_note", ""), "",
               "## Limitations", ""] + [f"- {x}" for x in card.get("limitations", [])]
     lines += ["", "## Environment", "", f"code version {card.get('code_version')}, created {card.get('created')}", ""]

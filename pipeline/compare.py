@@ -21,6 +21,7 @@ from pkasite.models.metrics import paired_bootstrap_diff, point_metrics
 from .bundle import ModelBundle, load_bundle
 from .config import RunConfig
 from .curate import curate
+from .evaluation import HEADLINE, constants_by_mol
 from .ingest import parse_inhouse
 
 _RUN_ID = re.compile(r"^[0-9a-f]{32}$")
@@ -59,13 +60,6 @@ def _site_values(bundle: ModelBundle, table) -> np.ndarray:
     return bundle.regressor.predict(X, table.sites["kind"].to_numpy())
 
 
-def _molecule_values(table, site_pred: np.ndarray) -> np.ndarray:
-    from .train import labeled_site_predictions, molecule_predictions
-    explicit = table.molecules["site_atom"].notna().to_numpy()
-    return np.where(explicit, labeled_site_predictions(table.sites, site_pred),
-                    molecule_predictions(table.sites, site_pred))
-
-
 def _summarize(df: pd.DataFrame, seed: int, basis: str) -> Comparison:
     overall = {**paired_bootstrap_diff(df["label"], df["pred_a"], df["pred_b"], seed=seed),
                "rmse_a": point_metrics(df["label"], df["pred_a"])["rmse"],
@@ -91,8 +85,8 @@ def compare_on_holdout(a: ModelBundle, b: ModelBundle, holdout: Path, cfg: RunCo
     if result.measurements.empty:
         raise ValueError(f"{holdout}: no usable rows ({result.summary['rejected_by_reason']})")
     table = build_site_table(result.measurements)
-    mol_a = _molecule_values(table, _site_values(a, table))
-    mol_b = _molecule_values(table, _site_values(b, table))
+    mol_a = constants_by_mol(table, _site_values(a, table))
+    mol_b = constants_by_mol(table, _site_values(b, table))
     lab = table.sites[table.sites["labeled"]].sort_values("mol_id")
     df = pd.DataFrame({"record_id": lab["record_id"].to_numpy(), "smiles": lab["smiles"].to_numpy(),
                        "kind": lab["kind"].to_numpy(), "site_type": lab["site_type"].to_numpy(),
@@ -104,15 +98,19 @@ def compare_on_holdout(a: ModelBundle, b: ModelBundle, holdout: Path, cfg: RunCo
 def compare_on_cv(a: ModelBundle, b: ModelBundle, seed: int = 42) -> Comparison:
     if a.cv_predictions is None or b.cv_predictions is None:
         raise ValueError("both models need their cross-validation predictions (bundles from pkasite train)")
-    keep = ["inchikey", "kind", "label", "site_type", "smiles", "record_id", "pred_site_model_strongest"]
+    col = f"pred_{HEADLINE}"
+    for name, bundle in (("A", a), ("B", b)):
+        if col not in bundle.cv_predictions.columns:
+            raise ValueError(f"model {name} was trained before value-free validation figures (no {col} column "
+                             "in its CV predictions); retrain it or give a --holdout file")
+    keep = ["inchikey", "kind", "label", "site_type", "smiles", "record_id", col]
     pa_ = a.cv_predictions[a.cv_predictions["scheme"] == "molecule"][keep]
-    pb_ = b.cv_predictions[b.cv_predictions["scheme"] == "molecule"][["inchikey", "kind", "label", "pred_site_model_strongest"]]
+    pb_ = b.cv_predictions[b.cv_predictions["scheme"] == "molecule"][["inchikey", "kind", "label", col]]
     df = pa_.merge(pb_, on=["inchikey", "kind"], suffixes=("_a", "_b"))
     df = df[np.isclose(df["label_a"], df["label_b"])]
     if df.empty:
         raise ValueError("the two runs share no molecule with the same label; give a --holdout file")
-    df = df.rename(columns={"label_a": "label", "pred_site_model_strongest_a": "pred_a",
-                            "pred_site_model_strongest_b": "pred_b"}).drop(columns=["label_b"])
+    df = df.rename(columns={"label_a": "label", f"{col}_a": "pred_a", f"{col}_b": "pred_b"}).drop(columns=["label_b"])
     return _summarize(df, seed, f"shared molecule-grouped CV predictions: {len(df)} molecules")
 
 

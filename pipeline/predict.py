@@ -22,8 +22,9 @@ from pkasite.models.microstates import (fraction_neutral_form, macro_pkas, major
 
 from .bundle import ModelBundle
 
-MOLECULE_COLUMNS = ["id", "smiles", "status", "acid_pka", "base_pka", "macro_pkas", "charge_at_ph",
-                    "major_species", "fraction_neutral", "in_domain", "warnings"]
+MOLECULE_COLUMNS = ["id", "smiles", "status", "acid_pka", "acid_pka_low", "acid_pka_high", "base_pka",
+                    "base_pka_low", "base_pka_high", "macro_pkas", "charge_at_ph", "major_species",
+                    "fraction_neutral", "in_domain", "warnings"]
 SITE_COLUMNS = ["id", "atom", "site_type", "kind", "pka", "pka_low", "pka_high", "similarity", "in_domain",
                 "warnings"]
 MAX_HEAVY_ATOMS = 300
@@ -144,12 +145,16 @@ def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4, level: fl
             sel = kinds == kind
             if sel.any() and kind in bundle.train_bits:
                 sim[sel] = tanimoto_max(bits[sel], bundle.train_bits[kind])
-        half = bundle.calibrator.half_width(similarity_bin(sim), level)
+        bins = similarity_bin(sim)
+        half = bundle.calibrator.half_width(bins, level)
+        # the molecule's constant of a kind gets the molecule-level interval of the site it comes from
+        mol_cal = bundle.molecule_calibrator or bundle.calibrator
+        mol_half = mol_cal.half_width(bins, level)
         if explain:
             from .explain import explain_sites, format_explanation
             phrases = [format_explanation(p) for p in explain_sites(bundle, items)]
     else:
-        kinds, pka, sim, half = np.array([]), np.array([]), np.array([]), np.array([])
+        kinds, pka, sim, half, mol_half = (np.array([]),) * 5
     owners = np.array(owners, dtype=int)
     seen_ids: dict = {}
     mol_rows, site_rows = [], []
@@ -177,9 +182,13 @@ def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4, level: fl
                               "similarity": round(float(sim[j]), 3), "in_domain": not sw, "warnings": "; ".join(sw),
                               **({"explanation": phrases[j]} if explain else {})})
         k, v = kinds[idx], pka[idx]
-        acids, bases = v[k == "acid"], v[k == "base"]
-        row["acid_pka"] = round(float(acids.min()), 2) if len(acids) else None
-        row["base_pka"] = round(float(bases.max()), 2) if len(bases) else None
+        for kind, pick in (("acid", np.argmin), ("base", np.argmax)):
+            sel = idx[k == kind]
+            if len(sel):
+                j = sel[pick(pka[sel])]
+                row[f"{kind}_pka"] = round(float(pka[j]), 2)
+                row[f"{kind}_pka_low"] = round(float(pka[j] - mol_half[j]), 2)
+                row[f"{kind}_pka_high"] = round(float(pka[j] + mol_half[j]), 2)
         row["macro_pkas"] = ";".join(f"{x:.2f}" for x in macro_pkas(v)) if len(v) else ""
         charge0 = float(Chem.GetFormalCharge(p.mol))
         row["charge_at_ph"] = round(mean_charge(v, k, ph, charge0), 3)

@@ -38,6 +38,7 @@ from .explain import explain_sites_full, format_explanation
 __all__ = ["SECTIONS", "render_report", "write_report", "coverage_curve", "calibration_curve", "worst_predictions"]
 
 SECTIONS = (
+    ("how-measured", "How these figures were measured"),
     ("summary", "Summary and cautions"),
     ("provenance", "Data provenance and licences"),
     ("curation", "Curation funnel"),
@@ -52,11 +53,15 @@ SECTIONS = (
     ("environment", "Environment and code version"),
 )
 MODEL_LABELS = {
-    "site_model": "site model, labeled site",
-    "site_model_strongest": "site model, strongest site",
+    "site_model": "site model (molecule's predicted constant)",
     "type_median": "baseline: site-type median",
     "mol_morgan": "baseline: molecule Morgan GBM",
+    "site_attribution_check": "site attribution check (diagnostic)",
 }
+HEADLINE_MODELS = ("site_model", "type_median", "mol_morgan")
+DIAGNOSTIC_NOTE = ("Diagnostic, not a headline figure: the prediction at the site the measured value was attached "
+                   "to. That site was chosen with the measured value itself, so for molecules with several "
+                   "candidate sites this figure is optimistic by construction.")
 SCHEME_LABELS = {"molecule": "grouped by molecule", "scaffold": "grouped by scaffold",
                  "site_type": "leave one site type out"}
 N_WORST = 20
@@ -225,7 +230,10 @@ def calibration_curve(residuals: pd.DataFrame, levels=CAL_LEVELS, folds: int = 5
 
 
 def _site_atom(row) -> int | None:
-    atom = row.get("atom") if hasattr(row, "get") else None
+    """The site the prediction came from (value-free bundles), else the attached site."""
+    atom = row.get("pred_atom") if hasattr(row, "get") else None
+    if atom is None or (isinstance(atom, float) and np.isnan(atom)) or atom == -1:
+        atom = row.get("atom") if hasattr(row, "get") else None
     if atom is not None and not (isinstance(atom, float) and np.isnan(atom)):
         return int(atom)
     # older bundles without an atom column: the first catalogue site of the labeled type
@@ -250,7 +258,8 @@ def worst_predictions(bundle: ModelBundle, n: int = N_WORST) -> pd.DataFrame:
     for i, row in worst.iterrows():
         mol = Chem.MolFromSmiles(row["smiles"])
         if mol is not None and row["site_atom"] is not None and row["kind"] in ("acid", "base"):
-            items.append((mol, int(row["site_atom"]), row["kind"], row["site_type"]))
+            stype = row.get("pred_site_type") or row["site_type"]
+            items.append((mol, int(row["site_atom"]), row["kind"], stype))
             where.append(i)
     expl = [""] * len(worst)
     final = [np.nan] * len(worst)
@@ -268,28 +277,56 @@ def worst_predictions(bundle: ModelBundle, n: int = N_WORST) -> pd.DataFrame:
 # ----------------------------------------------------------------------------- sections
 
 
+def _how_measured(bundle: ModelBundle) -> str:
+    card = bundle.card
+    text = card.get("how_measured")
+    if not text:
+        return ('<p class="muted">This bundle was trained before value-free validation figures; its headline '
+                "figures may use the measured value to choose a site. Retrain it for figures a reviewer can "
+                "rely on.</p>")
+    held = card.get("heldout") or {}
+    extra = ""
+    if held:
+        extra = ("<p>Held out: the measurements of the configured evaluation split were never used for fitting, "
+                 "label assignment or calibration; they were predicted once by the final model.</p>")
+    return f"<p>{_e(text)}</p>{extra}"
+
+
 def _summary(bundle: ModelBundle) -> str:
     card = bundle.card
     cards = [("measurements", card.get("n_measurements")), ("molecules with a site", card.get("n_molecules"))]
     m = bundle.cv_metrics
     if m is not None:
-        sel = m[(m.scheme == "molecule") & (m.subset == "overall")].set_index("model")
-        if "site_model" in sel.index:
-            s = sel.loc["site_model"]
-            cards += [("CV RMSE (molecule folds)", f"{s.rmse:.2f}"), ("CV MAE", f"{s.mae:.2f}"),
-                      ("within 1 log unit", f"{100 * s.within_1:.0f}%")]
-        for base in ("type_median", "mol_morgan"):
-            if base in sel.index:
-                cards.append((f"RMSE {MODEL_LABELS[base]}", f"{sel.loc[base].rmse:.2f}"))
-    cov = card.get("interval_coverage") or {}
-    if "coverage_90" in cov:
-        cards.append(("90% interval coverage", f"{100 * cov['coverage_90']:.0f}%"))
+        sel = m[(m.subset == "overall") & (m.model == "site_model")].set_index("scheme")
+        labels = {"molecule": "CV RMSE, molecule folds", "scaffold": "CV RMSE, scaffold folds",
+                  "site_type": "CV RMSE, unseen site type"}
+        for scheme, label in labels.items():
+            if scheme in sel.index:
+                cards.append((label, f"{sel.loc[scheme].rmse:.2f}"))
+        if "molecule" in sel.index:
+            cards.append(("within 1 log unit (molecule folds)", f"{100 * sel.loc['molecule'].within_1:.0f}%"))
+        base = m[(m.scheme == "molecule") & (m.subset == "overall")].set_index("model")
+        for b in ("type_median", "mol_morgan"):
+            if b in base.index:
+                cards.append((f"RMSE {MODEL_LABELS[b]}", f"{base.loc[b].rmse:.2f}"))
+    held = card.get("heldout") or {}
+    for kind in ("acid", "base"):
+        if f"test_rmse_{kind}" in held:
+            cards.append((f"held-out test RMSE, {kind}", f"{held[f'test_rmse_{kind}']:.2f}"))
+    cov = bundle.coverage
+    if cov is not None and len(cov):
+        where = "held-out test" if (cov["where"] == "held-out test").any() else "molecule CV (cross-fitted)"
+        c = cov[(cov["where"] == where) & (cov["level"] == "molecule") & (cov["nominal"] == cov["nominal"].max())]
+        if len(c):
+            cards.append((f"{int(100 * c.nominal.iloc[0])}% interval of the molecule's constant, observed "
+                          f"coverage {' / '.join(c.kind)} ({where})", " / ".join(f"{100 * x:.0f}%" for x in c.observed)))
     cards.append(("domain similarity threshold", _num(bundle.domain.get("threshold"))))
     tiles = "".join(f'<div class="card"><div class="v">{_e(v)}</div><div class="k">{_e(k)}</div></div>'
                     for k, v in cards)
     return (f"<p>{_e(card.get('intended_use', ''))}</p><div class=\"cards\">{tiles}</div>"
             f'<div class="caution"><strong>Caution.</strong> {_e(CAUTION)}</div>'
-            "<p>Cross-validation numbers are out-of-fold: every value was predicted by a model that did not see "
+            "<p>Every figure on these cards is value-free: the molecule's predicted constant against its measured "
+            "value. Cross-validation numbers are out-of-fold: every value was predicted by a model that did not see "
             "that molecule (or scaffold, or site type). RMSE, MAE and R<sup>2</sup> are in pKa log units; "
             "bracketed ranges are bootstrap 95% intervals.</p>")
 
@@ -372,21 +409,18 @@ def _cv(bundle: ModelBundle) -> str:
     m = bundle.cv_metrics
     if m is None:
         return _missing("The cross-validation table")
-    out = ["<p>Three fold schemes run in the same job: folds grouped by molecule, grouped by Bemis-Murcko "
-           "scaffold, and leave one site type out. Both baselines run on the same folds. The lowest RMSE of "
-           "each block is in bold.</p>"]
+    out = ["<p>Fold schemes of the same job: folds grouped by molecule, grouped by Bemis-Murcko scaffold, and "
+           "leave one site type out. Both baselines run on the same folds and are scored the same value-free way. "
+           "The lowest RMSE of each block is in bold.</p>"]
     header = ["model", "n", "RMSE [95% CI]", "MAE [95% CI]", "R\u00b2 [95% CI]", "within 1", "within 2"]
 
     def ci(r, k, d=2):
         return f"{_num(r[k], d)} <span class=\"muted\">[{_num(r.get(k + '_low'), d)}, {_num(r.get(k + '_high'), d)}]</span>"
 
-    for scheme in ("molecule", "scaffold", "site_type"):
-        ms = m[m.scheme == scheme]
-        if ms.empty:
-            continue
+    def block_table(ms, models, mark_best):
         rows, flags = [], []
         for subset in ("overall", "kind:acid", "kind:base"):
-            block = ms[ms.subset == subset].copy()
+            block = ms[(ms.subset == subset) & ms.model.isin(models)].copy()
             if block.empty:
                 continue
             block["order"] = block.model.map({k: i for i, k in enumerate(MODEL_LABELS)}).fillna(99)
@@ -396,10 +430,22 @@ def _cv(bundle: ModelBundle) -> str:
                 rows.append([f"<strong>{_e(subset.replace('kind:', ''))}</strong>" if j == 0 else "",
                              _e(MODEL_LABELS.get(r.model, r.model)), _e(int(r.n)), ci(r, "rmse"), ci(r, "mae"),
                              ci(r, "r2"), f"{100 * r.within_1:.0f}%", f"{100 * r.within_2:.0f}%"])
-                flags.append(("best " if idx == best else "") + ("first" if j == 0 else ""))
-        out.append(f"<h3>{_e(SCHEME_LABELS.get(scheme, scheme))}</h3>"
-                   + _table(["sites"] + header, rows, numeric={2, 3, 4, 5, 6, 7},
-                            row_class=lambda i, f=flags: f[i].strip()))
+                flags.append(("best " if mark_best and idx == best else "") + ("first" if j == 0 else ""))
+        return _table(["molecules"] + header, rows, numeric={2, 3, 4, 5, 6, 7},
+                      row_class=lambda i, f=flags: f[i].strip()) if rows else ""
+
+    diagnostics = []
+    for scheme in ("molecule", "scaffold", "site_type"):
+        ms = m[m.scheme == scheme]
+        if ms.empty:
+            continue
+        out.append(f"<h3>{_e(SCHEME_LABELS.get(scheme, scheme))}</h3>" + block_table(ms, HEADLINE_MODELS, True))
+        diag = block_table(ms, ("site_attribution_check",), False)
+        if diag:
+            diagnostics.append(f"<h4>{_e(SCHEME_LABELS.get(scheme, scheme))}</h4>" + diag)
+    if diagnostics:
+        out.append(f"<h3>Site attribution check (diagnostic)</h3><p>{_e(DIAGNOSTIC_NOTE)}</p>"
+                   + "<details><summary>tables</summary>" + "".join(diagnostics) + "</details>")
     return "".join(out)
 
 
@@ -428,12 +474,18 @@ def _parity(bundle: ModelBundle) -> str:
         ax.set_title(f"{kind} sites: n = {len(s)}, RMSE = {rmse:.2f}", fontsize=10)
         ax.legend(fontsize=8, loc="upper left", frameon=False)
     fig.tight_layout()
-    return _figure(fig, "parity plots", "Out-of-fold predictions of the site model at the labeled site, folds grouped "
-                   "by molecule. The grey band is +/- 1 log unit. Base values are pKa of the conjugate acid.")
+    return _figure(fig, "parity plots", "Value-free out-of-fold predictions: each molecule's predicted constant of the "
+                   "measured kind against its value, folds grouped by molecule. The grey band is +/- 1 log unit. Base "
+                   "values are pKa of the conjugate acid.")
+
+
+def _level(residuals: pd.DataFrame, level: str) -> pd.DataFrame:
+    """Rows of one residual level (older bundles have one level, value-attached, without the column)."""
+    return residuals[residuals["level"] == level] if "level" in residuals.columns else residuals
 
 
 def _residuals_by_type(bundle: ModelBundle) -> str:
-    r = bundle.residuals.dropna(subset=["residual"])
+    r = _level(bundle.residuals, "molecule").dropna(subset=["residual"])
     if r.empty:
         return _missing("Residuals")
     counts = r.site_type.value_counts().head(N_TYPES)
@@ -452,14 +504,15 @@ def _residuals_by_type(bundle: ModelBundle) -> str:
     fig.tight_layout()
     rows = [[_e(t), _e(int(counts[t])), _num(med[t]),
              _num(np.sqrt(np.mean(r.loc[r.site_type == t, "residual"] ** 2)))] for t in types]
-    return (_figure(fig, "residuals by site type", f"Out-of-fold residuals (molecule folds) for the {len(types)} most "
-                    "frequent site types. A box off zero means the model is biased for that type.")
+    return (_figure(fig, "residuals by site type", f"Value-free out-of-fold residuals (molecule folds) of the molecules' "
+                    f"predicted constants, grouped by the type of the site the constant came from, for the {len(types)} "
+                    "most frequent types. A box off zero means the model is biased for that type.")
             + "<details><summary>table</summary>" + _table(["site type", "n", "median residual", "RMSE"], rows,
                                                             numeric={1, 2, 3}) + "</details>")
 
 
 def _domain(bundle: ModelBundle) -> str:
-    r = bundle.residuals.dropna(subset=["similarity", "residual"])
+    r = _level(bundle.residuals, "site").dropna(subset=["similarity", "residual"])
     if r.empty:
         return _missing("Residuals with similarity")
     thr = float(bundle.domain.get("threshold", np.nan))
@@ -499,45 +552,69 @@ def _domain(bundle: ModelBundle) -> str:
                      _num(np.sqrt(np.mean(kept.residual ** 2))) if len(kept) else "-",
                      _num(np.sqrt(np.mean(r[r.similarity < t].residual ** 2))) if (r.similarity < t).any() else "-"])
     rows.sort(key=lambda x: float(x[0]))
-    return (_figure(fig, "domain", "Left: absolute out-of-fold error against the similarity of the site's neighbourhood "
-                    "to the nearest training site of its kind (orange acids, blue bases). Right: RMSE of the sites "
+    return (_figure(fig, "domain", "Value-free residuals of molecules whose site is known without the value (one "
+                    "candidate site, or a site atom given in the data). Left: absolute out-of-fold error against the "
+                    "similarity of the site's neighbourhood to the nearest training site of its kind (orange acids, "
+                    "blue bases). Right: RMSE of the sites "
                     "at or above a similarity threshold against the share of sites kept; the marked point is the "
                     "bundle's domain threshold.")
             + _table(["similarity threshold", "sites kept", "RMSE kept", "RMSE dropped"], rows, numeric={0, 1, 2, 3}))
 
 
 def _calibration(bundle: ModelBundle) -> str:
+    out = ["<p>Split-conformal intervals by similarity bin, calibrated on value-free molecule-grouped CV residuals: "
+           "site intervals (per-site <code>pka_low</code>, <code>pka_high</code>) on molecules whose site is known "
+           "without the value, molecule intervals (<code>acid_pka_low</code> ... <code>base_pka_high</code>) on every "
+           "molecule's predicted constant.</p>"]
+    cov = bundle.coverage
+    if cov is not None and len(cov):
+        rows = [[_e(r.where), _e(r.level), _e(r.kind), f"{r.nominal:.2f}",
+                 f"{r.observed:.3f} <span class=\"muted\">[{r.observed_low:.3f}, {r.observed_high:.3f}]</span>",
+                 _num(r.mean_half_width), _e(r.n),
+                 _e(f"{100 * (r.observed - r.nominal):+.1f}")] for r in cov.itertuples()]
+        out.append("<h3>Nominal against observed coverage on data the calibration never saw</h3>"
+                   "<p>Molecule CV (cross-fitted): each fold judged by calibrators fitted on the other folds. Scaffold "
+                   "folds: residuals of the scaffold-grouped CV models, each fold judged by calibrators fitted on the "
+                   "molecule-CV residuals of the other scaffold folds (new chemistry). Held-out test: the final model's "
+                   "residuals on the evaluation split, judged by the shipped calibrators. Brackets: bootstrap 95% "
+                   "intervals.</p>"
+                   + _table(["where", "interval", "kind", "nominal", "observed [95% CI]", "mean half-width", "n",
+                             "observed - nominal (points)"], rows, numeric={3, 4, 5, 6, 7}))
+        miss = cov[(cov.observed - cov.nominal).abs() > 0.03]
+        if len(miss):
+            worst = miss.loc[(miss.observed - miss.nominal).abs().idxmax()]
+            out.append(f"<p><strong>Where coverage misses by more than 3 points:</strong> "
+                       f"{_e(', '.join(sorted(set(miss['where']))))}; the largest gap is "
+                       f"{100 * (worst.observed - worst.nominal):+.1f} points ({_e(worst['where'])}, {_e(worst['level'])}, "
+                       f"{_e(worst['kind'])}, nominal {worst['nominal']:.2f}). The intervals are calibrated on "
+                       "molecule-grouped residuals; molecules from scaffolds the model has not seen are predicted "
+                       "less well than that, so their intervals are too narrow. Widen them by that margin for new "
+                       "chemistry, or read the scaffold-fold rows as the coverage to expect there.</p>")
+        else:
+            out.append("<p>Every check is within 3 points of its nominal level.</p>")
     r = bundle.residuals
-    if r.dropna(subset=["similarity", "residual"]).mol_id.nunique() < 5:
-        return _missing("Enough residuals for a calibration check")
-    cal = calibration_curve(r, min_group=getattr(bundle.calibrator, "min_group", 50))
-    fig, (ax,) = _new_fig(5.2, 4.8)
-    ax.plot([0.45, 1], [0.45, 1], color=INK, lw=0.8, label="ideal")
-    ax.plot(cal.nominal, cal.observed_binned, "o-", color="#b5562b", ms=4, label="per similarity bin")
-    ax.plot(cal.nominal, cal.observed_pooled, "s--", color="#3d5a6c", ms=3.5, label="pooled")
-    cov = bundle.card.get("interval_coverage") or {}
-    pts = [(int(k.split("_")[1]) / 100, v) for k, v in cov.items() if re.fullmatch(r"coverage_\d+", k)]
-    if pts:
-        ax.plot([p for p, _ in pts], [v for _, v in pts], "D", color="#2f8f4e", ms=7, mfc="none", mew=1.5,
-                label="model card")
-    ax.set_xlim(0.45, 1)
-    ax.set_ylim(0.45, 1)
-    ax.set_aspect("equal")
-    ax.set_xlabel("nominal level", fontsize=9)
-    ax.set_ylabel("observed coverage (held-out folds)", fontsize=9)
-    ax.legend(fontsize=8, frameon=False, loc="upper left")
+    levels = ("site", "molecule") if "level" in r.columns else (None,)
+    fig, axes = _new_fig(5.2 * len(levels), 4.8, ncols=len(levels))
+    for ax, level in zip(axes, levels):
+        res = _level(r, level) if level else r
+        if res.dropna(subset=["similarity", "residual"]).mol_id.nunique() < 5:
+            continue
+        cal = calibration_curve(res, min_group=getattr(bundle.calibrator, "min_group", 50))
+        ax.plot([0.45, 1], [0.45, 1], color=INK, lw=0.8, label="ideal")
+        ax.plot(cal.nominal, cal.observed_binned, "o-", color="#b5562b", ms=4, label="per similarity bin")
+        ax.plot(cal.nominal, cal.observed_pooled, "s--", color="#3d5a6c", ms=3.5, label="pooled")
+        ax.set_xlim(0.45, 1)
+        ax.set_ylim(0.45, 1)
+        ax.set_aspect("equal")
+        ax.set_title(f"{level or 'site'} intervals", fontsize=10)
+        ax.set_xlabel("nominal level", fontsize=9)
+        ax.set_ylabel("observed coverage (held-out folds)", fontsize=9)
+        ax.legend(fontsize=8, frameon=False, loc="upper left")
     fig.tight_layout()
-    rows = [[f"{lv:.2f}", f"{ob:.3f}", _num(wb), f"{op:.3f}", _num(wp)] for lv, ob, op, wb, wp in
-            zip(cal.nominal, cal.observed_binned, cal.observed_pooled, cal.mean_half_width_binned,
-                cal.mean_half_width_pooled)]
-    card_rows = "".join(f"<li>{_e(k.replace('coverage_', ''))}% interval: observed {100 * float(v):.1f}%</li>"
-                        for k, v in sorted(cov.items()))
-    return (_figure(fig, "calibration", "Split-conformal intervals fitted on four fifths of the out-of-fold residuals "
-                    "(folds grouped by molecule) and checked on the remaining fifth, in turn. Points on the diagonal "
-                    "mean the intervals hold their stated level.")
-            + _table(["nominal", "observed (per bin)", "mean half-width", "observed (pooled)", "mean half-width"],
-                     rows, numeric={0, 1, 2, 3, 4})
-            + (f"<p>Coverage stored in the model card at training time:</p><ul>{card_rows}</ul>" if card_rows else ""))
+    out.append(_figure(fig, "calibration", "Calibration curves on the molecule-grouped CV residuals, cross-fitted (fitted "
+                       "on four fifths, checked on the remaining fifth, in turn). Points on the diagonal mean the "
+                       "intervals hold their stated level."))
+    return "".join(out)
 
 
 def _worst(bundle: ModelBundle) -> str:
@@ -549,13 +626,14 @@ def _worst(bundle: ModelBundle) -> str:
         rows.append([str(i + 1), f'<div class="depict">{depict_svg(r.smiles, r.site_atom)}</div>'
                      f'<div class="muted" style="font-size:11px;max-width:200px;word-break:break-all">'
                      f"{_e(r.smiles)}</div>",
-                     _e(r.site_type) + f"<br><span class=\"muted\">{_e(r.kind)}</span>",
+                     _e(r.get("pred_site_type") or r.site_type) + f"<br><span class=\"muted\">{_e(r.kind)}</span>",
                      _num(r.label), _num(r.pred_site_model), _num(r.error), _num(r.final_pred),
                      _e(r.explanation)])
-    table = _table(["#", "structure (site highlighted)", "site type", "measured", "predicted (CV)", "error",
+    table = _table(["#", "structure (predicting site highlighted)", "site type", "measured", "predicted (CV)", "error",
                     "final model", "why the final model says so (log units)"], rows, numeric={0, 3, 4, 5, 6},
                    classes={7: "expl"})
-    return ("<p>The largest out-of-fold errors of the site model (folds grouped by molecule). The explanation lists "
+    return ("<p>The largest value-free out-of-fold errors (folds grouped by molecule): the molecule's predicted constant "
+            "against its value, with the site the constant came from highlighted. The explanation lists "
             "the four largest feature-group contributions of the final model, trained on all data including this "
             "molecule, so it explains the final model's value rather than the out-of-fold one. Large errors "
             "often point at a wrongly attached label, a doubtful literature value or a chemotype the data barely "
@@ -615,6 +693,7 @@ def render_report(bundle: ModelBundle, title: str | None = None, run_info: dict 
     """The whole validation report as one self-contained HTML string."""
     title = title or f"Validation report: {bundle.card.get('name', 'pkasite site model')}"
     builders = {
+        "how-measured": lambda: _how_measured(bundle),
         "summary": lambda: _summary(bundle), "provenance": lambda: _provenance(bundle),
         "curation": lambda: _curation(bundle), "assignment": lambda: _assignment(bundle),
         "cross-validation": lambda: _cv(bundle), "parity": lambda: _parity(bundle),

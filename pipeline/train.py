@@ -17,13 +17,13 @@ from rdkit import Chem
 from pkasite.features.fingerprints import mol_fingerprint_counts, site_neighbourhood_bits
 from pkasite.features.site_features import FeatureSettings
 from pkasite.features.sites import load_catalog
-from pkasite.models.calibration import ConformalCalibrator
-from pkasite.models.domain import similarity_bin, tanimoto_max
+from pkasite.models.domain import tanimoto_max
 from pkasite.models.metrics import bootstrap_metrics, point_metrics
 from pkasite.models.regressor import FitJob, SiteRegressor, fit_many
 from pkasite.models.splits import group_kfold, leave_one_group_out, murcko_scaffold
 
 from .config import RunConfig, booster_params
+from . import evaluation as E
 from .sitetable import SiteTable, build_site_table, site_matrix
 from .stages import StageClock
 
@@ -67,27 +67,7 @@ def prepare(measurements: pd.DataFrame, cfg: RunConfig) -> Prepared:
     return Prepared(table, X, bits, mol_X, site_types, settings)
 
 
-# ----------------------------------------------------------------------------- molecule-level reduction
-
-def molecule_predictions(sites: pd.DataFrame, site_pred: np.ndarray) -> np.ndarray:
-    """Per mol_id: min site prediction for acids, max for bases (NaN where no prediction)."""
-    df = pd.DataFrame({"mol_id": sites["mol_id"].to_numpy(), "kind": sites["kind"].to_numpy(), "p": site_pred})
-    acid = df[df["kind"] == "acid"].groupby("mol_id")["p"].min()
-    base = df[df["kind"] == "base"].groupby("mol_id")["p"].max()
-    n = int(sites["mol_id"].max()) + 1 if len(sites) else 0
-    out = np.full(n, np.nan)
-    out[acid.index.to_numpy()] = acid.to_numpy()
-    out[base.index.to_numpy()] = base.to_numpy()
-    return out
-
-
-def labeled_site_predictions(sites: pd.DataFrame, site_pred: np.ndarray) -> np.ndarray:
-    """Per mol_id: the prediction at the site carrying the molecule's label."""
-    lab = sites["labeled"].to_numpy()
-    out = np.full(int(sites["mol_id"].max()) + 1 if len(sites) else 0, np.nan)
-    out[sites["mol_id"].to_numpy()[lab]] = site_pred[lab]
-    return out
-
+# ----------------------------------------------------------------------------- molecule labels
 
 def _labels(prep: Prepared) -> pd.DataFrame:
     """One row per molecule: its label, kind and labeled site type."""
@@ -335,44 +315,53 @@ def metric_table(mols: pd.DataFrame, pred_by_mol: dict[str, np.ndarray], cfg: Ru
 class CVResult:
     metrics: pd.DataFrame
     predictions: pd.DataFrame        # one row per (scheme, molecule) with every model's prediction
-    residuals: pd.DataFrame          # molecule-scheme OOF labeled-site rows: kind, site_type, similarity, residual
-    moved_per_round: list[int] = field(default_factory=list)
+    residuals: pd.DataFrame          # molecule-grouped CV, value-free (evaluation.residual_table)
+    scaffold_residuals: pd.DataFrame | None = None   # scaffold-grouped CV, value-free
+    scaffold_folds: dict | None = None               # mol_id -> scaffold fold
 
 
 def cross_validate(prep: Prepared, cfg: RunConfig, clock: StageClock | None = None) -> CVResult:
     """Every scheme of ``cv.schemes`` (with the baselines when ``cv.baselines``), then bootstrap metrics.
 
-    Within a scheme, all fold models (site model and baselines) are fitted in one parallel pool.
+    Within a scheme, all fold models (site model and baselines) are fitted in one parallel pool.  The
+    headline model ``site_model`` is the molecule's predicted constant (value-free, see
+    :mod:`pkasite.pipeline.evaluation`); ``site_attribution_check`` is the diagnostic at the site the
+    value was attached to.
     """
     clock = clock or StageClock()
     mols = _labels(prep)
-    preds, residuals, scored = [], None, []
+    preds, scored, residuals = [], [], {}
+    folds_by_scheme = {}
     for scheme in cfg.cv.schemes:
         with clock(f"cv {scheme}" + (" + baselines" if cfg.cv.baselines else "")) as stage:
             splits = make_splits(prep, scheme, cfg)
             jobs = (site_jobs(prep, splits, cfg, unseen_type=(scheme == "site_type"))
                     + (morgan_jobs(prep, splits) if cfg.cv.baselines else []))
             regs = fit_many(jobs, booster_params(cfg.model), cfg.seed)
-            site_pred, fold, sim = site_oof(prep, splits, regs[:len(splits)], with_similarity=(scheme == "molecule"))
-            by_model = {"site_model": labeled_site_predictions(prep.sites, site_pred),
-                        "site_model_strongest": molecule_predictions(prep.sites, site_pred)}
+            with_sim = scheme in ("molecule", "scaffold")
+            site_pred, fold, sim = site_oof(prep, splits, regs[:len(splits)], with_similarity=with_sim)
+            const = E.molecule_constants(prep.sites, site_pred, E.given_atoms(prep.table))
+            by_model = {E.HEADLINE: E.constants_by_mol(prep.table, site_pred),
+                        E.ATTRIBUTION: E.attributed_predictions(prep.sites, site_pred)}
             if cfg.cv.baselines:
-                by_model["type_median"] = labeled_site_predictions(prep.sites, type_median_predictions(prep, splits))
+                by_model["type_median"] = E.constants_by_mol(prep.table, type_median_predictions(prep, splits))
                 by_model["mol_morgan"] = morgan_oof(prep, splits, regs[len(splits):])
             tested = np.unique(np.concatenate([te for _, _, te in splits]))
             sub = mols[mols["mol_id"].isin(tested)]
             fold_of_mol = pd.Series(fold, index=prep.sites["mol_id"]).groupby(level=0).first()
+            rows = const["row"].reindex(sub["mol_id"]).to_numpy()
+            has = ~np.isnan(rows)
+            r = np.where(has, rows, 0).astype(int)
             p = sub.assign(scheme=scheme, fold=fold_of_mol.reindex(sub["mol_id"]).to_numpy(),
+                           pred_atom=np.where(has, prep.sites["atom"].to_numpy()[r], -1),
+                           pred_site_type=np.where(has, prep.sites["site_type"].to_numpy()[r], ""),
+                           similarity=np.where(has, sim[r], np.nan),
                            **{f"pred_{k}": v[sub["mol_id"].to_numpy()] for k, v in by_model.items()})
             preds.append(p)
             scored.append((scheme, sub, by_model, p))
-            if scheme == "molecule":
-                lab = prep.sites["labeled"].to_numpy()
-                residuals = pd.DataFrame({
-                    "mol_id": prep.sites["mol_id"].to_numpy()[lab], "kind": prep.sites["kind"].to_numpy()[lab],
-                    "site_type": prep.sites["site_type"].to_numpy()[lab], "similarity": sim[lab],
-                    "label": prep.sites["label"].to_numpy()[lab], "pred": site_pred[lab]})
-                residuals["residual"] = residuals["pred"] - residuals["label"]
+            if with_sim:
+                residuals[scheme] = E.residual_table(prep.table, site_pred, sim)
+                folds_by_scheme[scheme] = fold_of_mol.to_dict()
             stage.note = ", ".join(f"{k} RMSE {np.sqrt(np.nanmean((p[f'pred_{k}'] - p['label']) ** 2)):.2f}"
                                    for k in by_model)
     with clock("bootstrap metrics") as stage:
@@ -381,17 +370,20 @@ def cross_validate(prep: Prepared, cfg: RunConfig, clock: StageClock | None = No
             tables.append(metric_table(sub, by_model, cfg, scheme))
             if scheme != "site_type":  # per-fold figures (for site_type the folds are the type subsets)
                 tables.append(pd.DataFrame([
-                    {"scheme": scheme, "model": "site_model", "subset": f"fold:{f}",
-                     **point_metrics(g["label"], g["pred_site_model"])} for f, g in p.groupby("fold")]))
+                    {"scheme": scheme, "model": E.HEADLINE, "subset": f"fold:{f}",
+                     **point_metrics(g["label"], g[f"pred_{E.HEADLINE}"])} for f, g in p.groupby("fold")]))
         stage.note = f"{cfg.cv.bootstrap} resamples"
-    return CVResult(pd.concat(tables, ignore_index=True), pd.concat(preds, ignore_index=True), residuals)
+    return CVResult(pd.concat(tables, ignore_index=True), pd.concat(preds, ignore_index=True),
+                    residuals.get("molecule"), residuals.get("scaffold"), folds_by_scheme.get("scaffold"))
 
 
 # ----------------------------------------------------------------------------- domain and intervals
 
 def domain_threshold(residuals: pd.DataFrame, target_rmse: float) -> float:
-    """Lowest similarity threshold at which the CV RMSE of the sites at or above it meets the target."""
-    r = residuals.dropna(subset=["similarity"]).sort_values("similarity", ascending=False)
+    """Lowest similarity threshold at which the CV RMSE of the known-site residuals at or above it
+    meets the target (value-free residuals, :func:`evaluation.residual_table`)."""
+    r = residuals[residuals["level"] == "site"].dropna(subset=["similarity"])
+    r = r.sort_values("similarity", ascending=False)
     if r.empty:
         return 1.0
     sq = np.cumsum(r["residual"].to_numpy() ** 2)
@@ -402,37 +394,56 @@ def domain_threshold(residuals: pd.DataFrame, target_rmse: float) -> float:
     return float(r["similarity"].to_numpy()[ok.max()])
 
 
-def interval_coverage(residuals: pd.DataFrame, levels, seed: int, folds: int = 5) -> dict:
-    """Observed coverage of conformal intervals on held-out folds of the CV residuals."""
-    res = residuals.dropna(subset=["similarity"]).reset_index(drop=True)
-    bins = similarity_bin(res["similarity"].to_numpy())
-    out = {}
-    for lv in levels:
-        covered = np.zeros(len(res), bool)
-        for tr, te in group_kfold(res["mol_id"].to_numpy(), folds, seed):
-            cal = ConformalCalibrator(levels=tuple(levels)).fit(res["residual"].to_numpy()[tr], bins[tr])
-            covered[te] = np.abs(res["residual"].to_numpy()[te]) <= cal.half_width(bins[te], lv)
-        out[f"coverage_{int(lv * 100)}"] = float(covered.mean())
-    return out
+def coverage_checks(cv: CVResult, cfg: RunConfig, test_residuals: pd.DataFrame | None = None) -> pd.DataFrame:
+    """Nominal against observed interval coverage, per level (site, molecule) and kind, on residuals
+    the calibration never saw: cross-fitted molecule folds, the scaffold folds (calibrated on the
+    molecule-CV residuals of the other scaffold folds) and, when given, the held-out test set."""
+    levels = cfg.domain.interval_levels
+    mol_folds = {m: f"f{k}" for k, (_, te) in enumerate(group_kfold(cv.residuals["mol_id"].unique(), cfg.cv.folds,
+                                                                        cfg.seed)) for m in cv.residuals["mol_id"].unique()[te]}
+    rows = E.coverage_rows(cv.residuals, cv.residuals, "molecule CV (cross-fitted)", levels, folds=mol_folds,
+                           seed=cfg.seed)
+    if cv.scaffold_residuals is not None:
+        rows += E.coverage_rows(cv.residuals, cv.scaffold_residuals, "scaffold folds", levels,
+                                folds=cv.scaffold_folds, seed=cfg.seed)
+    if test_residuals is not None:
+        rows += E.coverage_rows(cv.residuals, test_residuals, "held-out test", levels, seed=cfg.seed)
+    return pd.DataFrame(rows)
 
 
 # ----------------------------------------------------------------------------- evaluation on a held-out set
 
-def evaluate_holdout(reg: SiteRegressor, measurements: pd.DataFrame, cfg: RunConfig, train_prep: Prepared) -> dict:
-    """Metrics of a fitted model and the Morgan baseline on held-out measurements.
+def heldout_site_predictions(reg: SiteRegressor, prep: Prepared, train_bits: dict) -> tuple[np.ndarray, np.ndarray]:
+    """Site predictions and domain similarities for a held-out site table: features and kinds only,
+    no value and no attached site."""
+    kinds = prep.sites["kind"].to_numpy()
+    site_pred = reg.predict(prep.X, kinds)
+    sim = np.full(len(kinds), np.nan)
+    for kind in ("acid", "base"):
+        sel = kinds == kind
+        if sel.any() and kind in train_bits:
+            sim[sel] = tanimoto_max(prep.bits[sel], train_bits[kind])
+    return site_pred, sim
 
-    ``test_rmse_<kind>``: at the site the value is attached to (by the model's predictions and
-    the value, as in training); ``test_rmse_strongest_<kind>``: the most acidic/basic predicted
-    site against the value, which needs no attachment at all.
+
+def evaluate_holdout(reg: SiteRegressor, measurements: pd.DataFrame, cfg: RunConfig, train_prep: Prepared,
+                     train_bits: dict) -> tuple[dict, pd.DataFrame]:
+    """Value-free metrics of a fitted model and the Morgan baseline on held-out measurements, and the
+    held-out residual table (for coverage checks).
+
+    ``test_<metric>_<kind>``: the molecule's predicted constant against the value (headline);
+    ``attribution_check_test_<metric>_<kind>``: the diagnostic at the site the value is attached to
+    (by the model's predictions and the value, as in training).
     """
     prep = prepare(measurements, cfg)
-    site_pred = reg.predict(prep.X, prep.sites["kind"].to_numpy())
+    site_pred, sim = heldout_site_predictions(reg, prep, train_bits)
+    constant = E.constants_by_mol(prep.table, site_pred)
+    residuals = E.residual_table(prep.table, site_pred, sim)
     labeled = prep.sites["labeled"].to_numpy().copy()
     for rows, _, _, new in predicted_assignments(prep, site_pred, cfg):
         labeled[rows] = prep.sites["atom"].to_numpy()[rows] == new.atom
     prep.sites["labeled"] = labeled
-    at_site = labeled_site_predictions(prep.sites, site_pred)
-    strongest = molecule_predictions(prep.sites, site_pred)
+    attributed = E.attributed_predictions(prep.sites, site_pred)
     mols = _labels(prep)
     tmols = _labels(train_prep)
     y, kinds = _molecule_labels(train_prep)
@@ -446,12 +457,13 @@ def evaluate_holdout(reg: SiteRegressor, measurements: pd.DataFrame, cfg: RunCon
         if len(sel) < 2:
             continue
         y, ids = sel["label"].to_numpy(), sel["mol_id"].to_numpy()
-        out.update({f"test_{k}_{kind}": v for k, v in point_metrics(y, at_site[ids]).items()})
-        out.update({f"test_{k}_strongest_{kind}": v for k, v in point_metrics(y, strongest[ids]).items()
+        boot = bootstrap_metrics(y, constant[ids], n_boot=cfg.cv.bootstrap, seed=cfg.seed)
+        out.update({f"test_{k}_{kind}": v for k, v in boot.items()})
+        out.update({f"{E.ATTRIBUTION}_test_{k}_{kind}": v for k, v in point_metrics(y, attributed[ids]).items()
                     if k != "n"})
-        out.update({f"test_baseline_mol_morgan_{k}_{kind}": v for k, v in point_metrics(y, base_pred[ids]).items()
+        out.update({f"baseline_mol_morgan_test_{k}_{kind}": v for k, v in point_metrics(y, base_pred[ids]).items()
                     if k != "n"})
-    return out
+    return out, residuals
 
 
 def split_filter(measurements: pd.DataFrame, splits: list[str] | None) -> pd.DataFrame:

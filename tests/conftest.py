@@ -33,3 +33,21 @@ def curated(mirror, tmp_path_factory):
     cache = tmp_path_factory.mktemp("cache")
     files = pull_step(cfg, cache=cache, mirror=mirror)
     return curate_step(cfg, files, tmp_path_factory.mktemp("curated"))
+
+
+@pytest.fixture(scope="session")
+def subset(curated):
+    """250 acid and 250 base measurements of the curated open data (a fixed random sample)."""
+    import pandas as pd
+    m = curated.result.measurements
+    return pd.concat([m[m["kind"] == k].sample(250, random_state=0) for k in ("acid", "base")], ignore_index=True)
+
+
+@pytest.fixture(scope="session")
+def heldout(curated, subset):
+    """300 other measurements of the curated open data, none of them in ``subset``."""
+    import pandas as pd
+    m = curated.result.measurements
+    rest = m[~m["record_id"].isin(subset["record_id"]) & ~m["inchikey"].isin(subset["inchikey"])]
+    return pd.concat([rest[rest["kind"] == k].sample(150, random_state=1) for k in ("acid", "base")],
+                     ignore_index=True)

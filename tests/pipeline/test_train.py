@@ -23,12 +23,6 @@ def small_config(tmp_path, **extra) -> RunConfig:
 
 
 @pytest.fixture(scope="session")
-def subset(curated) -> pd.DataFrame:
-    m = curated.result.measurements
-    return pd.concat([m[m["kind"] == k].sample(250, random_state=0) for k in ("acid", "base")], ignore_index=True)
-
-
-@pytest.fixture(scope="session")
 def trained(subset, tmp_path_factory):
     from pkasite.pipeline.workflow import train_step
     tmp = tmp_path_factory.mktemp("train")
@@ -41,7 +35,7 @@ def test_three_cv_schemes_with_baselines(trained):
     cv = pd.read_csv(out.cv_metrics)
     overall = cv[cv["subset"] == "overall"].set_index(["scheme", "model"])["rmse"]
     for scheme in ("molecule", "scaffold", "site_type"):
-        for model in ("site_model", "site_model_strongest", "type_median", "mol_morgan"):
+        for model in ("site_model", "site_attribution_check", "type_median", "mol_morgan"):
             assert (scheme, model) in overall.index
     # the learned model must beat the site-type median prior on held-out molecules
     assert overall[("molecule", "site_model")] < overall[("molecule", "type_median")]
@@ -75,7 +69,9 @@ def test_mlflow_run_registry_and_pyfunc(trained):
     client = MlflowClient(tracking_uri=cfg.mlflow.tracking_uri)
     run = client.get_run(out.mlflow["run_id"])
     assert run.data.params["model.n_estimators"] == "80"
-    assert "cv_molecule_site_model_overall_rmse" in run.data.metrics
+    assert {"cv_rmse_molecule_overall", "cv_rmse_scaffold_acid", "baseline_mol_morgan_cv_rmse_molecule_overall",
+            "site_attribution_check_cv_rmse_molecule_overall"} <= set(run.data.metrics)
+    assert "interval_coverage_scaffold_molecule_acid_90" in run.data.metrics
     assert run.data.tags["dataset_sha256"] and run.data.tags["code_version"]
     exp = client.get_experiment(run.info.experiment_id)
     assert exp.name == "test-small"
@@ -130,7 +126,7 @@ def test_quick_training_from_the_cli_reports_each_stage(tmp_path, mirror):
                                     str(DATA / "small_config.yaml"), "--mirror", str(mirror), "-o", str(out)])
     assert res.exit_code == 0, res.output
     cv = pd.read_csv(out / "cv_metrics.csv")
-    assert set(cv["scheme"]) == {"molecule"} and set(cv["model"]) == {"site_model", "site_model_strongest"}
+    assert set(cv["scheme"]) == {"molecule"} and set(cv["model"]) == {"site_model", "site_attribution_check"}
     assert (out / "report.html").stat().st_size > 10_000
     stages = re.findall(r"^\[\s*([0-9.]+) s\] ([a-z +0-9-]+)", res.output, re.M)
     names = [name.strip() for _, name in stages]

@@ -1,0 +1,88 @@
+"""The headline figures never use a held-out molecule's measured value before predicting it.
+
+Data: samples of the curated open data (dwpka, CC BY 4.0): 500 training and 300 held-out
+measurements, and a small booster so the test stays quick.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from pkasite.pipeline import evaluation as E
+from pkasite.pipeline import train as T
+from pkasite.pipeline.config import load_config
+
+pytestmark = pytest.mark.slow
+CFG = load_config().with_overrides({"model.n_estimators": 80, "model.learning_rate": 0.1, "cv.folds": 3,
+                                    "cv.bootstrap": 50, "model.assignment_rounds": 1})
+
+
+@pytest.fixture(scope="module")
+def fitted(subset):
+    prep = T.prepare(subset, CFG)
+    reg = T.fit_regressor(prep, np.arange(len(prep.table.molecules)), CFG)
+    lab, kinds = prep.sites["labeled"].to_numpy(), prep.sites["kind"].to_numpy()
+    return prep, reg, {k: prep.bits[lab & (kinds == k)] for k in ("acid", "base")}
+
+
+def _shuffled(measurements: pd.DataFrame, seed: int) -> pd.DataFrame:
+    out = measurements.copy()
+    rng = np.random.default_rng(seed)
+    for kind in ("acid", "base"):
+        idx = out.index[out["kind"] == kind]
+        out.loc[idx, "pka"] = rng.permutation(out.loc[idx, "pka"].to_numpy())
+    return out
+
+
+def test_shuffled_values_hurt_the_headline_exactly_as_for_predictions_that_never_saw_them(fitted, heldout):
+    prep, reg, bits = fitted
+    true_metrics, true_res = T.evaluate_holdout(reg, heldout, CFG, prep, bits)
+    shuffled = _shuffled(heldout, 3)
+    shuf_metrics, shuf_res = T.evaluate_holdout(reg, shuffled, CFG, prep, bits)
+    # predictions made without the values: the same for both runs, molecule by molecule
+    a = true_res[true_res["level"] == "molecule"].set_index("mol_id")
+    b = shuf_res[shuf_res["level"] == "molecule"].set_index("mol_id")
+    assert np.array_equal(a["pred"].to_numpy(), b["pred"].to_numpy())
+    for kind in ("acid", "base"):
+        sel = a["kind"] == kind
+        never_saw = float(np.sqrt(np.mean((a.loc[sel, "pred"] - b.loc[sel, "label"]) ** 2)))
+        assert shuf_metrics[f"test_rmse_{kind}"] == pytest.approx(never_saw, rel=1e-12)
+        assert shuf_metrics[f"test_rmse_{kind}"] > true_metrics[f"test_rmse_{kind}"] + 1.0
+        # the value-attached diagnostic lets the shuffled value pick the site, so it degrades less:
+        # this is the leak the headline is protected from, and the test would see it
+        assert shuf_metrics[f"site_attribution_check_test_rmse_{kind}"] < never_saw
+
+
+def test_value_free_reduction_reads_no_value_and_no_attached_site(fitted, heldout):
+    prep, reg, bits = fitted
+    test = T.prepare(heldout, CFG)
+    pred, sim = T.heldout_site_predictions(reg, test, bits)
+    reference = E.constants_by_mol(test.table, pred)
+    blind = test.table.sites.drop(columns=["label", "labeled", "confidence"])
+    got = E.molecule_constants(blind, pred, E.given_atoms(test.table))
+    assert np.array_equal(got["pred"].to_numpy(), reference[got.index.to_numpy()])
+    # the site predictions themselves do not change when every value and attachment is scrambled
+    test.table.sites["label"] = np.nan
+    test.table.sites["labeled"] = np.random.default_rng(0).random(len(test.table.sites)) < 0.5
+    again, _ = T.heldout_site_predictions(reg, test, bits)
+    assert np.array_equal(again, pred)
+
+
+def test_cv_predictions_of_a_fold_do_not_depend_on_its_values(subset):
+    prep = T.prepare(subset, CFG)
+    splits = T.make_splits(prep, "molecule", CFG)[:1]
+    before, _, _ = T.oof_site_predictions(prep, splits, CFG)
+    _, _, test_mols = splits[0]
+    rows = np.isin(prep.sites["mol_id"].to_numpy(), test_mols)
+    prep.sites.loc[rows, "label"] = prep.sites.loc[rows, "label"].to_numpy()[::-1] + 3.0
+    after, _, _ = T.oof_site_predictions(prep, splits, CFG)
+    assert np.array_equal(before[rows], after[rows]) and not np.isnan(before[rows]).any()
+
+
+def test_molecule_constant_is_the_strongest_site_or_the_given_one():
+    sites = pd.DataFrame({"mol_id": [0, 0, 1, 1, 2, 2], "kind": ["acid", "acid", "base", "base", "acid", "acid"],
+                          "atom": [1, 4, 0, 3, 2, 5]})
+    pred = np.array([4.2, 9.9, 10.5, 5.2, 4.0, 9.0])
+    got = E.molecule_constants(sites, pred, np.array([np.nan, np.nan, 5.0]))
+    assert got["pred"].tolist() == [4.2, 10.5, 9.0] and got["row"].tolist() == [0, 2, 5]
