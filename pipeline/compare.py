@@ -116,7 +116,10 @@ def compare_on_cv(a: ModelBundle, b: ModelBundle, seed: int = 42) -> Comparison:
 
 def format_comparison(c: Comparison, top: int = 15) -> str:
     o = c.overall
-    lines = [f"basis: {c.basis}", f"RMSE A {o['rmse_a']:.3f}, RMSE B {o['rmse_b']:.3f}", c.verdict(), "",
+    lines = [f"basis: {c.basis}",
+             "value-free: each model's predicted constant of the molecule (its given site, else its most acidic "
+             "acid / most basic base site) against the value",
+             f"RMSE A {o['rmse_a']:.3f}, RMSE B {o['rmse_b']:.3f}", c.verdict(), "",
              f"{'site type':<32} {'n':>5} {'RMSE A':>7} {'RMSE B':>7} {'B - A':>7}  95% CI"]
     for r in c.by_type.head(top).itertuples():
         ci = "" if np.isnan(r.rmse_diff_low) else f"{r.rmse_diff_low:+.2f} to {r.rmse_diff_high:+.2f}"
