@@ -400,6 +400,7 @@ def assign_site(
     value: float | None = None,
     tolerance: float = 2.0,
     catalog: Catalog | None = None,
+    rank: int = 1,
 ) -> Assignment:
     """Choose the site a molecule-level constant of ``kind`` belongs to.
 
@@ -416,6 +417,10 @@ def assign_site(
     When no site is consistent, the one closest to the value is chosen. ``confidence`` is
     :func:`assignment_confidence` of the gap to the runner-up, 1.0 with a single candidate or an
     explicit atom.
+
+    ``rank > 1`` says the value is the molecule's ``rank``-th strongest constant of the kind (a later
+    constant): it goes to the ``rank``-th distinct candidate in the same order (the weakest one when
+    there are fewer), and the value plays no part in the choice.
     """
     if kind not in KINDS:
         raise ValueError(f"kind must be one of {KINDS}, got {kind!r}")
@@ -446,16 +451,19 @@ def assign_site(
     def site_value(site: Site) -> float:
         return float(predicted.get(site.atom, site.prior))
 
-    if value is not None and len(distinct) > 1:
+    if value is not None and len(distinct) > 1 and rank == 1:
         distinct = _consistent_with(distinct, float(value), tolerance, by_prediction, site_value,
                                     catalog or load_catalog())
 
     ranked = sorted(distinct, key=lambda s: (sign * site_value(s), s.atom))
-    chosen = ranked[0]
+    pos = min(max(rank, 1), len(ranked)) - 1
+    chosen = ranked[pos]
     if len(ranked) == 1:
         confidence = 1.0
     else:
-        confidence = assignment_confidence(abs(site_value(ranked[1]) - site_value(chosen)))
+        gaps = [abs(site_value(ranked[j]) - site_value(chosen)) for j in (pos - 1, pos + 1) if 0 <= j < len(ranked)]
+        confidence = assignment_confidence(min(gaps))
     extreme = "lowest" if kind == "acid" else "highest"
-    reason = f"{extreme} {source} ({site_value(chosen):.2f}) among {len(ranked)} distinct {kind} site(s)"
+    nth = "" if pos == 0 else f"number {pos + 1} by "
+    reason = f"{nth}{extreme} {source} ({site_value(chosen):.2f}) among {len(ranked)} distinct {kind} site(s)"
     return Assignment(chosen.atom, chosen.type, confidence, reason)

@@ -58,8 +58,11 @@ def parse_smiles(smiles: str) -> Chem.Mol:
     return mol
 
 
-def standardize_mol(mol: Chem.Mol, site_atom: int | None = None) -> Standardized:
-    """Standardize ``mol``; ``site_atom`` (index in ``mol``) is carried through."""
+def standardize_mol(mol: Chem.Mol, site_atom: int | None = None, with_inchikey: bool = True) -> Standardized:
+    """Standardize ``mol``; ``site_atom`` (index in ``mol``) is carried through.
+
+    ``with_inchikey=False`` skips the InChIKey (``inchikey`` is then empty): prediction needs no identity.
+    """
     if site_atom is not None and not 0 <= site_atom < mol.GetNumAtoms():
         raise StructureError(f"site_atom {site_atom} is not an atom index of the structure")
     mol = Chem.Mol(mol)
@@ -88,8 +91,8 @@ def standardize_mol(mol: Chem.Mol, site_atom: int | None = None) -> Standardized
     final = Chem.MolFromSmiles(smiles)
     if final is None:
         raise StructureError("standardized SMILES does not parse back")
-    inchikey = Chem.MolToInchiKey(final)
-    if not inchikey:
+    inchikey = Chem.MolToInchiKey(final) if with_inchikey else ""
+    if with_inchikey and not inchikey:
         raise StructureError("no InChIKey for the standardized structure")
     return Standardized(final, smiles, inchikey, new_site, original)
 

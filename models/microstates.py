@@ -1,57 +1,347 @@
-"""From site (microscopic) pKa values to macroscopic constants, charge and species populations.
+"""From site (microscopic) pKa values to microstate populations, macroscopic constants and charge.
 
-Sites are treated as independent: each site is protonated with probability
-``1 / (1 + 10**(pH - pKa))``.  Under that model the microstate populations
-factorize, the binding polynomial is ``prod_i (1 + h / K_i)`` with ``h = [H+]``
-and ``K_i = 10**-pKa_i``, and the macroscopic stepwise constants are ratios of
-its coefficients (the sums over microstates holding the same number of protons).
-Site-site interactions (a second carboxylate made weaker by the first) are not
-modelled; that is a known limitation, stated in the model card.
+Sites.  Each site ``i`` has a site pKa ``pka[i]`` (for a base, the pKa of its conjugate acid) defined
+with every other site in its uncharged form (acids protonated, bases not), and a kind.  A microstate
+says for every site whether it carries its proton; its charges are ``q = -1`` for a deprotonated acid,
+``+1`` for a protonated base, ``0`` otherwise.
+
+Free energy.  Relative to the fully deprotonated reference, a microstate's cumulative formation
+constant is (base-10 logarithm, in pK units)
+
+    log10 beta(s) = sum_{i bound in s} pka[i]  -  sum_{i<j} q_i(s) q_j(s) W_ij
+
+so two like charges cost ``W_ij`` (repulsion) and two opposite charges gain it (attraction).  This is
+the electrostatic site-site picture of polyprotic acids (N. Bjerrum, Z. phys. Chem. 106, 219 (1923);
+J. G. Kirkwood and F. H. Westheimer, J. Chem. Phys. 6, 506 (1938)): for two equivalent acid groups
+it gives pK2 - pK1 = log10 4 + W.  ``W_ij`` comes from :class:`InteractionModel`.  With ``W = 0`` the
+sites are independent and every result reduces to Henderson-Hasselbalch per site.
+
+Macroscopic constants.  Grouping microstates by the number of bound protons gives the binding
+polynomial ``sum_n c_n h**n``; the stepwise constants are ``log10(c_n / c_(n-1))``.  Each step is
+attributed to acid or base sites by which of them lose the proton on that step, so a molecule's
+"acid constant" and "base constant" are read off the same populations as its charge.
+
+Size.  Microstates are enumerated exactly up to :data:`MAX_EXACT_SITES` sites.  Beyond that, the sites
+farthest outside the titration window are held in their dominant form in the window (their charges
+still act on the others), and :attr:`Microstates.held` names them.
 """
 from __future__ import annotations
 
+import csv
+import math
+from dataclasses import dataclass, field
+from functools import lru_cache
+from importlib import resources
+
 import numpy as np
 
+MAX_EXACT_SITES = 12
+LN10 = math.log(10.0)
+
+
+# ----------------------------------------------------------------------------- site-site interaction
+
+@dataclass(frozen=True)
+class InteractionModel:
+    """Pair term between two charged sites ``d`` bonds apart: ``W = amplitude / d**power`` pK units,
+    times ``conjugated_factor`` when both sites sit in (or on) one aromatic ring system.
+
+    The power law stands in for the Coulomb term of the electrostatic model with a distance that
+    grows with the number of bonds; its parameters are fitted (:meth:`fit`) on a calibration set of
+    handbook diacids, diamines and diazines (``configs/site_interactions.csv``) that no test set uses.
+    """
+
+    amplitude: float = 22.0
+    power: float = 2.0
+    conjugated_factor: float = 2.0
+    cap: float = 7.0           # no pair term above the largest one the calibration set shows
+    n_calibration: int = 0
+    # Attraction of an acid-base pair relative to the repulsion of like charges.  Chosen by molecule-
+    # grouped CV on the publishers' training files among 0, 0.5 and 1 (value-free RMSE 1.385, 1.396,
+    # 1.421): the site model learns zwitterion-forming sites from measured macro constants, so a further
+    # attraction counts the same effect twice.
+    opposite_factor: float = 0.0
+
+    def pair(self, distance: np.ndarray, conjugated: np.ndarray) -> np.ndarray:
+        d = np.maximum(np.asarray(distance, float), 1.0)
+        w = self.amplitude / d ** self.power
+        return np.minimum(np.where(np.asarray(conjugated, bool), w * self.conjugated_factor, w), self.cap)
+
+    @classmethod
+    def fit(cls, distance, conjugated, delta_pk) -> "InteractionModel":
+        """Least squares in log space: log W = log amplitude - power log d on the non-conjugated rows,
+        then the conjugated factor as the geometric mean ratio on the conjugated rows."""
+        d = np.asarray(distance, float)
+        c = np.asarray(conjugated, bool)
+        w = np.asarray(delta_pk, float)
+        if (~c).sum() < 2 or np.any(w <= 0):
+            raise ValueError("need at least two non-conjugated calibration pairs with positive interaction")
+        slope, intercept = np.polyfit(np.log(d[~c]), np.log(w[~c]), 1)
+        amplitude, power, cap = float(np.exp(intercept)), float(-slope), float(w.max())
+        ratio = 1.0
+        if c.any():
+            plain = amplitude / d[c] ** power
+            ratio = float(np.exp(np.mean(np.log(w[c] / plain))))
+        return cls(amplitude, power, ratio, cap, len(w))
+
+    @classmethod
+    def from_dict(cls, d: dict) -> "InteractionModel":
+        return cls(**{k: d[k] for k in ("amplitude", "power", "conjugated_factor", "cap", "n_calibration",
+                                        "opposite_factor") if k in d})
+
+    def matrix(self, distance: np.ndarray, conjugated: np.ndarray, kinds=None) -> np.ndarray:
+        """Pair matrix for sites with the given distance and conjugation matrices (zero diagonal; sites
+        on one atom get zero: they are handled as exclusive, not as interacting).  With ``kinds``,
+        acid-base pairs (the only ones that can carry opposite charges) are scaled by
+        ``opposite_factor``."""
+        d = np.asarray(distance, float)
+        W = self.pair(d, conjugated)
+        W[d <= 0] = 0.0
+        if kinds is not None and self.opposite_factor != 1.0:
+            k = np.asarray(kinds)
+            W = np.where(k[:, None] != k[None, :], W * self.opposite_factor, W)
+        return W
+
+    def to_dict(self) -> dict:
+        return {"amplitude": self.amplitude, "power": self.power, "conjugated_factor": self.conjugated_factor,
+                "cap": self.cap, "n_calibration": self.n_calibration, "opposite_factor": self.opposite_factor}
+
+
+def exclusive_pairs(kinds, distance: np.ndarray, conjugated: np.ndarray | None = None) -> np.ndarray:
+    """Pairs of an acid and a base site that are never charged at once: two sites on one atom (an
+    atom cannot gain and lose a proton at the same time).  Other acid-base pairs may both be charged:
+    that state is a zwitterion, or, within one aromatic system, the other tautomer (2-hydroxypyridine's
+    charged pair is 2-pyridone), whose weight the two site constants set."""
+    k = np.asarray(kinds)
+    d = np.asarray(distance, float)
+    return (k[:, None] != k[None, :]) & (d <= 0)
+
+
+def read_calibration(text: str) -> list[dict]:
+    """Rows of the calibration CSV (``#`` lines are comments)."""
+    lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
+    return list(csv.DictReader(lines))
+
+
+@lru_cache(maxsize=1)
+def default_interaction_model() -> InteractionModel:
+    """The model fitted on the packaged calibration set (``configs/site_interactions.csv``).
+
+    Each row gives two macroscopic constants of a molecule with two like sites ``d`` bonds apart; the
+    interaction is ``pK_weaker - pK_stronger - log10(statistical factor)``.
+    """
+    text = resources.files("pkasite.configs").joinpath("site_interactions.csv").read_text(encoding="utf-8")
+    rows = read_calibration(text)
+    d = [float(r["distance"]) for r in rows]
+    conj = [r["conjugated"].strip().lower() in ("1", "true", "yes") for r in rows]
+    w = [abs(float(r["pk2"]) - float(r["pk1"])) - math.log10(float(r["statistical_factor"])) for r in rows]
+    return InteractionModel.fit(d, conj, w)
+
+
+# ----------------------------------------------------------------------------- microstates
+
+def _logsumexp10(x: np.ndarray, axis=None) -> np.ndarray:
+    m = np.max(x, axis=axis, keepdims=True)
+    m = np.where(np.isfinite(m), m, 0.0)
+    out = np.log10(np.sum(10.0 ** (x - m), axis=axis, keepdims=True)) + m
+    return np.squeeze(out, axis=axis) if axis is not None else out.item()
+
+
+@dataclass
+class Microstates:
+    """All microstates of a molecule's sites, with their formation constants (see module doc).
+
+    ``pka``, ``kinds`` per site; ``W`` the symmetric pair matrix (pK units; zero: independent);
+    ``exclusive`` pairs (:func:`exclusive_pairs`) are never charged at once; ``window`` the titration
+    window used to pick sites to hold when there are too many.
+    """
+
+    pka: np.ndarray
+    kinds: np.ndarray
+    W: np.ndarray | None = None
+    window: tuple[float, float] = (0.0, 14.0)
+    exclusive: np.ndarray | None = None
+    hold: np.ndarray | None = None
+    held: list[int] = field(default_factory=list, init=False)
+
+    def __post_init__(self):
+        self.pka = np.asarray(self.pka, float)
+        self.kinds = np.asarray(self.kinds)
+        n = len(self.pka)
+        self.W = np.zeros((n, n)) if self.W is None else np.asarray(self.W, float)
+        acid = self.kinds == "acid"
+        # sites to hold fixed: farthest outside the window first
+        centre = 0.5 * (self.window[0] + self.window[1])
+        free = np.ones(n, bool) if self.hold is None else ~np.asarray(self.hold, bool)
+        if free.sum() > MAX_EXACT_SITES:
+            order = [i for i in np.argsort(-np.abs(self.pka - centre), kind="stable") if free[i]]
+            for i in order[: int(free.sum()) - MAX_EXACT_SITES]:
+                free[i] = False
+        self.held = [int(i) for i in np.flatnonzero(~free)]
+        # sites held for being too many take their dominant form at the window centre; weak sites
+        # (``hold``) stay uncharged: acids keep their proton, bases stay without one
+        held_bound = self.pka > centre
+        if self.hold is not None:
+            held_bound = np.where(np.asarray(self.hold, bool), acid, held_bound)
+        held_q = np.where(acid, np.where(held_bound, 0.0, -1.0), np.where(held_bound, 1.0, 0.0))
+        idx = np.flatnonzero(free)
+        k = len(idx)
+        states = ((np.arange(2 ** k)[:, None] >> np.arange(k)[None, :]) & 1).astype(bool)  # bound?
+        q = np.where(acid[idx], np.where(states, 0.0, -1.0), np.where(states, 1.0, 0.0))
+        Wf = self.W[np.ix_(idx, idx)]
+        pair = 0.5 * np.einsum("si,ij,sj->s", q, Wf, q)
+        held_field = (self.W[np.ix_(idx, ~free)] @ held_q[~free]) if (~free).any() else np.zeros(k)
+        log_beta = states @ self.pka[idx] - pair - q @ held_field
+        if self.exclusive is not None and k:
+            ex = np.asarray(self.exclusive, bool)[np.ix_(idx, idx)]
+            for i, j in zip(*np.nonzero(np.triu(ex, 1))):
+                log_beta[(q[:, i] != 0) & (q[:, j] != 0)] = -np.inf
+        self.free = idx
+        self.states = states
+        self.q = q
+        self.held_q = held_q
+        self.log_beta = log_beta
+        self.n_bound = states.sum(axis=1)
+        self.acid_bound = states[:, acid[idx]].sum(axis=1)
+
+    # ------------------------------------------------------------------ populations
+    def log_weights(self, ph: float) -> np.ndarray:
+        return self.log_beta - ph * self.n_bound
+
+    def populations(self, ph: float) -> np.ndarray:
+        lw = self.log_weights(ph)
+        return 10.0 ** (lw - _logsumexp10(lw))
+
+    def mean_charge(self, ph: float, base_charge: float = 0.0) -> float:
+        held = float(self.held_q[self.held].sum()) if self.held else 0.0
+        return float(base_charge + held + self.populations(ph) @ self.q.sum(axis=1))
+
+    def neutral_fraction(self, ph: float) -> float:
+        """Population of the microstate with every site uncharged (0 when a held site is charged)."""
+        if self.held and np.any(self.held_q[self.held] != 0):
+            return 0.0
+        return float(self.populations(ph)[np.all(self.q == 0, axis=1)].sum())
+
+    def major_protonation(self, ph: float) -> np.ndarray:
+        """Per site: does it carry its proton in the most populated microstate."""
+        out = self.pka > 0.5 * (self.window[0] + self.window[1])
+        out[self.free] = self.states[int(np.argmax(self.log_weights(ph)))]
+        return out
+
+    # ------------------------------------------------------------------ macroscopic constants
+    def macro_constants(self) -> tuple[np.ndarray, np.ndarray]:
+        """Stepwise macroscopic constants (ascending) and the kind of sites each step titrates."""
+        if getattr(self, "_macro", None) is None:
+            self._macro = self._macro_constants()
+        return self._macro
+
+    def mean_charge_curve(self, ph: np.ndarray, base_charge: float = 0.0) -> np.ndarray:
+        """Mean charge at each pH of an array (one matrix operation)."""
+        lw = self.log_beta[None, :] - np.asarray(ph, float)[:, None] * self.n_bound[None, :]
+        lw = lw - lw.max(axis=1, keepdims=True)
+        w = 10.0 ** lw
+        held = float(self.held_q[self.held].sum()) if self.held else 0.0
+        return base_charge + held + (w @ self.q.sum(axis=1)) / w.sum(axis=1)
+
+    def isoelectric_point(self, base_charge: float = 0.0, low: float = 0.0, high: float = 14.0) -> float | None:
+        """pH of zero mean charge (the charge falls with pH), or None when it does not cross zero there."""
+        grid = np.linspace(low, high, 281)
+        q = self.mean_charge_curve(grid, base_charge)
+        cross = np.flatnonzero((q[:-1] > 0) & (q[1:] <= 0))
+        if not len(cross):
+            return None
+        i = int(cross[0])
+        for _ in range(12):  # bisection inside the bracketing grid step
+            mid = 0.5 * (grid[i] + grid[i + 1])
+            if self.mean_charge_curve(np.array([mid]), base_charge)[0] > 0:
+                grid[i] = mid
+            else:
+                grid[i + 1] = mid
+        return float(0.5 * (grid[i] + grid[i + 1]))
+
+    def _macro_constants(self) -> tuple[np.ndarray, np.ndarray]:
+        k = len(self.free)
+        if k == 0:
+            return np.zeros(0), np.zeros(0, dtype=object)
+        logc = np.full(k + 1, -np.inf)
+        ea = np.zeros(k + 1)
+        for n in range(k + 1):
+            sel = self.n_bound == n
+            if sel.any() and np.isfinite(self.log_beta[sel]).any():
+                logc[n] = _logsumexp10(self.log_beta[sel])
+                w = 10.0 ** (self.log_beta[sel] - logc[n])
+                ea[n] = w @ self.acid_bound[sel]
+        ok = np.isfinite(logc)
+        steps = [n for n in range(1, k + 1) if ok[n] and ok[n - 1]]
+        pk = np.array([logc[n] - logc[n - 1] for n in steps])
+        kind = np.array(["acid" if (ea[n] - ea[n - 1]) >= 0.5 else "base" for n in steps], dtype=object)
+        order = np.argsort(pk, kind="stable")
+        return pk[order], kind[order]
+
+    def constant_of_kind(self, kind: str, rank: int = 1) -> float:
+        """The ``rank``-th most acidic acid step (``kind='acid'``) or most basic base step (NaN if none)."""
+        pk, kinds = self.macro_constants()
+        sel = pk[kinds == kind]
+        if kind == "base":
+            sel = sel[::-1]
+        return float(sel[rank - 1]) if len(sel) >= rank else float("nan")
+
+
+def weak_sites(kinds, priors, pka, window: tuple[float, float] = (0.0, 14.0), margin: float = 3.0) -> np.ndarray:
+    """Sites held in their uncharged form: a site type whose catalog prior lies outside the window
+    (alcohols, indole and azole N-H, amide and thioamide O/S, ...) when the molecule has another site of
+    the same kind of an ordinary type, or when the site's own prediction is not well inside the window
+    (an acid above ``window_high - margin``, a base below ``window_low + margin``).
+
+    Such sites have few training examples and their predictions are the least certain; left free, an
+    alcohol next to a carboxylic acid, or an amide oxygen, would pose as a constant in the titration
+    range.  A lone weak site predicted well inside the window stays free.
+    """
+    k = np.asarray(kinds)
+    prior = np.asarray(priors, float)
+    p = np.asarray(pka, float)
+    lo, hi = window
+    outside = (prior < lo) | (prior > hi)
+    same_kind = k[:, None] == k[None, :]
+    np.fill_diagonal(same_kind, False)
+    ordinary_sibling = (same_kind & ~outside[None, :]).any(axis=1)
+    edge = np.where(k == "acid", p > hi - margin, p < lo + margin)
+    return outside & (ordinary_sibling | edge)
+
+
+# ----------------------------------------------------------------------------- independent-site helpers
 
 def fraction_protonated(pka: np.ndarray, ph: float) -> np.ndarray:
     return 1.0 / (1.0 + 10.0 ** (ph - np.asarray(pka, float)))
 
 
-def macro_pkas(pka: np.ndarray) -> np.ndarray:
-    """Macroscopic pKa values, ascending, from independent site pKa values.
-
-    With ``n`` sites, the coefficient ``b_k`` of ``h**k`` in the binding polynomial is the
-    sum over microstates with ``k`` bound protons; the k-th macroscopic constant (counting
-    from the most protonated end) is ``log10(b_k / b_(k-1))``.
-    """
-    pka = np.sort(np.asarray(pka, float))
-    n = len(pka)
-    if n == 0:
+def macro_pkas(pka: np.ndarray, kinds=None, W: np.ndarray | None = None) -> np.ndarray:
+    """Macroscopic constants, ascending (independent sites unless ``W`` is given)."""
+    pka = np.asarray(pka, float)
+    if len(pka) == 0:
         return pka
-    # polynomial in h scaled by 10**pka to stay in floating range: prod (1 + h * 10**pka_i)
-    # work in log space with coefficients of x = h: c_k = e_k(10**pka) (elementary symmetric)
-    logc = np.full(n + 1, -np.inf)
-    logc[0] = 0.0
-    for p in pka:  # multiply by (1 + 10**p x) in log10 space
-        shifted = np.concatenate([[-np.inf], logc[:-1] + p])
-        logc = np.logaddexp(logc * np.log(10), shifted * np.log(10)) / np.log(10)
-    return np.sort(logc[1:] - logc[:-1])
+    kinds = np.asarray(kinds) if kinds is not None else np.full(len(pka), "acid")
+    return Microstates(pka, kinds, W).macro_constants()[0]
 
 
-def mean_charge(pka: np.ndarray, kinds: np.ndarray, ph: float, base_charge: float = 0.0) -> float:
+def mean_charge(pka: np.ndarray, kinds: np.ndarray, ph: float, base_charge: float = 0.0, W=None) -> float:
     """Population-weighted net charge: acids lose -1 when deprotonated, bases gain +1 when protonated."""
-    f = fraction_protonated(pka, ph)
-    kinds = np.asarray(kinds)
-    return float(base_charge + np.sum(np.where(kinds == "base", f, f - 1.0)))
+    if len(pka) == 0:
+        return float(base_charge)
+    return Microstates(pka, kinds, W).mean_charge(ph, base_charge)
 
 
-def fraction_neutral_form(pka: np.ndarray, kinds: np.ndarray, ph: float) -> float:
+def fraction_neutral_form(pka: np.ndarray, kinds: np.ndarray, ph: float, W=None) -> float:
     """Population of the microstate with every site in its uncharged form (acids on, bases off)."""
-    f = fraction_protonated(pka, ph)
-    kinds = np.asarray(kinds)
-    return float(np.prod(np.where(kinds == "acid", f, 1.0 - f)))
+    if len(pka) == 0:
+        return 1.0
+    return Microstates(pka, kinds, W).neutral_fraction(ph)
 
 
-def major_protonation(pka: np.ndarray, ph: float) -> np.ndarray:
+def major_protonation(pka: np.ndarray, ph: float, kinds=None, W=None) -> np.ndarray:
     """Per site, whether it carries the proton in the most populated microstate."""
-    return np.asarray(pka, float) > ph
+    pka = np.asarray(pka, float)
+    if len(pka) == 0:
+        return np.zeros(0, bool)
+    kinds = np.asarray(kinds) if kinds is not None else np.full(len(pka), "acid")
+    return Microstates(pka, kinds, W).major_protonation(ph)

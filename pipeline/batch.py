@@ -157,8 +157,9 @@ def _init_worker(bundle_path: str) -> None:
 
 
 def _run_chunk(args) -> tuple[int, int]:
-    index, df, ph, parts, want_sites, explain = args
-    mols, sites = predict_records(_BUNDLE, df["id"].tolist(), df["smiles"].tolist(), ph=ph, explain=explain)
+    index, df, ph, parts, want_sites, explain, window = args
+    mols, sites = predict_records(_BUNDLE, df["id"].tolist(), df["smiles"].tolist(), ph=ph, explain=explain,
+                                  window=window)
     mols.insert(0, "row", df["row"].to_numpy())
     _write_part(mols, parts / f"mol_{index:06d}.parquet")
     if want_sites:
@@ -184,10 +185,10 @@ class BatchResult:
     status_counts: dict
 
 
-def _run_key(input_path: Path, bundle_path: Path, ph: float, chunk: int, want_sites: bool) -> str:
+def _run_key(input_path: Path, bundle_path: Path, ph: float, chunk: int, want_sites, window=None) -> str:
     st = input_path.stat()
     manifest = (Path(bundle_path) / "manifest.json").read_bytes()
-    text = json.dumps([str(input_path.resolve()), st.st_size, st.st_mtime_ns, ph, chunk, want_sites,
+    text = json.dumps([str(input_path.resolve()), st.st_size, st.st_mtime_ns, ph, chunk, want_sites, window,
                        hashlib.sha256(manifest).hexdigest()])
     return hashlib.sha256(text.encode()).hexdigest()
 
@@ -209,7 +210,7 @@ class Progress:
 
 
 _FLOAT = ("acid_pka", "acid_pka_low", "acid_pka_high", "base_pka", "base_pka_low", "base_pka_high", "charge_at_ph",
-          "fraction_neutral", "pka", "pka_low", "pka_high", "similarity")
+          "isoelectric_ph", "fraction_neutral", "pka", "pka_low", "pka_high", "similarity")
 
 
 def _arrow_schema(columns: list[str]) -> pa.Schema:
@@ -251,8 +252,10 @@ def _assemble(parts: Path, prefix: str, columns: list[str], target: Path) -> Non
 
 def run_batch(input_path: Path, output: Path, bundle_path: Path, sites_out: Path | None = None, ph: float = 7.4,
               jobs: int = 1, chunk_size: int = 1000, smiles_col: str | None = None, id_col: str | None = None,
-              progress: bool = True, explain: bool = False) -> BatchResult:
-    """Predict every row of ``input_path`` into ``output`` (and per-site rows into ``sites_out``)."""
+              progress: bool = True, explain: bool = False, window: tuple[float, float] = (0.0, 14.0)) -> BatchResult:
+    """Predict every row of ``input_path`` into ``output`` (and per-site rows into ``sites_out``).
+
+    ``window``: the pH range whose macroscopic constants are listed in ``macro_pkas``."""
     input_path, output = Path(input_path), Path(output)
     for target in (output, sites_out):
         if target is not None and Path(target).suffix.lower() not in TABLE_FORMATS:
@@ -262,7 +265,8 @@ def run_batch(input_path: Path, output: Path, bundle_path: Path, sites_out: Path
     verify_bundle(bundle_path)  # hashes checked once in the parent: a tampered bundle stops here
     t0 = time.monotonic()
     parts = output.with_name(output.name + ".parts")
-    key = _run_key(input_path, bundle_path, ph, chunk_size, (sites_out is not None, explain))
+    window = (float(window[0]), float(window[1]))
+    key = _run_key(input_path, bundle_path, ph, chunk_size, (sites_out is not None, explain), list(window))
     key_file = parts / "run.json"
     if parts.exists() and (not key_file.is_file() or json.loads(key_file.read_text()).get("key") != key):
         shutil.rmtree(parts)  # left by a run with other inputs or settings: start over
@@ -283,7 +287,7 @@ def run_batch(input_path: Path, output: Path, bundle_path: Path, sites_out: Path
                 resumed += 1
                 bar.update(len(df), index + 1)
                 continue
-            yield index, df, ph, parts, want_sites, explain
+            yield index, df, ph, parts, want_sites, explain, window
 
     if jobs == 1:
         _init_worker(str(bundle_path))

@@ -18,6 +18,7 @@ import pandas as pd
 
 from pkasite.features.site_features import FeatureSettings
 from pkasite.models.calibration import ConformalCalibrator
+from pkasite.models.microstates import InteractionModel
 from pkasite.models.regressor import SiteRegressor
 
 BUNDLE_FORMAT = 1
@@ -44,6 +45,7 @@ class ModelBundle:
     curation: dict | None = None
     molecule_calibrator: ConformalCalibrator | None = None   # intervals of the molecule's constants
     coverage: pd.DataFrame | None = None                      # interval coverage checks (where, level, kind, ...)
+    interactions: InteractionModel | None = None              # site-site pair terms of the microstate model
     path: Path | None = None
 
 
@@ -65,6 +67,7 @@ def save_bundle(bundle: ModelBundle, target: Path) -> Path:
                   "catalog_version": bundle.catalog_version, "calibrator": bundle.calibrator.to_dict(),
                   "molecule_calibrator": (bundle.molecule_calibrator.to_dict()
                                           if bundle.molecule_calibrator is not None else None),
+                  "interactions": bundle.interactions.to_dict() if bundle.interactions is not None else None,
                   "domain": bundle.domain}
         (tmp / "config.json").write_text(json.dumps(config, indent=2, sort_keys=True))
         np.savez_compressed(tmp / "train_bits.npz",
@@ -132,7 +135,9 @@ def load_bundle(path: Path) -> ModelBundle:
         curation=_optional(path / "curation_summary.json", lambda p: json.loads(p.read_text())),
         molecule_calibrator=(ConformalCalibrator.from_dict(config["molecule_calibrator"])
                              if config.get("molecule_calibrator") else None),
-        coverage=_optional(path / "interval_coverage.parquet", pd.read_parquet), path=path)
+        coverage=_optional(path / "interval_coverage.parquet", pd.read_parquet),
+        interactions=InteractionModel.from_dict(config["interactions"]) if config.get("interactions") else None,
+        path=path)
 
 
 def _optional(path: Path, read):

@@ -197,10 +197,13 @@ def _resolve_model(model: str | None, tracking_uri: str) -> Path:
 @click.option("--smiles-col", help="SMILES column name (default: auto-detected).")
 @click.option("--id-col", help="Id column name (default: auto-detected, else row numbers).")
 @click.option("--explain", is_flag=True, help="Add the top feature contributions, in chemistry words, to the per-site table.")
+@click.option("--window", default="0,14", show_default=True, metavar="LOW,HIGH",
+              help="pH range of the macroscopic constants listed in macro_pkas (macro_pkas_all keeps every one).")
 @click.option("--quiet", is_flag=True, help="No progress line.")
 @config_option
 @_fail_cleanly
-def predict_cmd(input_path, output, sites_out, ph, model, jobs, chunk_size, smiles_col, id_col, explain, quiet, config):
+def predict_cmd(input_path, output, sites_out, ph, model, jobs, chunk_size, smiles_col, id_col, explain, window, quiet,
+                config):
     """Predict site pKa, macro pKa, charge at pH, intervals and domain warnings for a file of molecules.
 
     INPUT is CSV/TSV (SMILES column auto-detected), .smi, .sdf or .parquet. Every input row gives
@@ -209,11 +212,17 @@ def predict_cmd(input_path, output, sites_out, ph, model, jobs, chunk_size, smil
     from .batch import run_batch
     if explain and not sites_out:
         raise click.UsageError("--explain adds a column to the per-site table: give --sites too")
+    try:
+        low, high = (float(x) for x in window.split(","))
+        if not low < high:
+            raise ValueError
+    except ValueError:
+        raise click.BadParameter(f"{window!r} is not LOW,HIGH with LOW < HIGH (e.g. 2,12)", param_hint="--window")
     cfg = load_config(config)
     bundle = _resolve_model(model, cfg.mlflow.tracking_uri)
     result = run_batch(Path(input_path), Path(output), bundle, Path(sites_out) if sites_out else None, ph=ph,
                        jobs=jobs, chunk_size=chunk_size, smiles_col=smiles_col, id_col=id_col,
-                       progress=not quiet, explain=explain)
+                       progress=not quiet, explain=explain, window=(low, high))
     statuses = ", ".join(f"{k} {v}" for k, v in sorted(result.status_counts.items()))
     _log(f"{result.rows} rows in {result.seconds:.1f} s ({statuses})"
          + (f"; resumed {result.resumed_chunks} finished chunk(s)" if result.resumed_chunks else ""))

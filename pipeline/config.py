@@ -72,7 +72,7 @@ class CurationConfig(_Strict):
     bound_values: Literal["keep", "reject"] = "reject"
     range_values: Literal["midpoint", "reject"] = "midpoint"
     max_range_width: float = 1.0
-    first_constant_only: bool = True
+    first_constant_only: bool = False  # true: only each compound's strongest constant of a kind (rank 1)
     pkw: float = 14.0
     conflict_spread: float = 2.0
     conflict_action: Literal["drop", "flag"] = "drop"
@@ -99,6 +99,7 @@ class FeaturesConfig(_Strict):
 class _ModelSettings(_Strict):
     per_kind: bool = True
     censored_sites: bool = True      # a molecule's other sites of the kind enter training as one-sided bounds
+    microstate_targets: bool = True  # labeled sites train on value + (site - molecule constant) offsets
     assignment_rounds: int = 3       # at most this many label re-assignment rounds (0: keep catalog priors)
     assignment_stop_fraction: float = Field(0.01, ge=0, le=1)  # stop once at most this share of labels moves
     assignment_n_estimators: int | None = 250      # cheaper boosters for the assignment rounds
@@ -128,7 +129,7 @@ class CVConfig(_Strict):
     folds: int = 5
     schemes: list[Literal["molecule", "scaffold", "site_type"]] = Field(
         default_factory=lambda: ["molecule", "scaffold", "site_type"])
-    site_type_min_count: int = 25    # leave-one-site-type-out only for types with this many labels
+    site_type_min_count: int = 40    # leave-one-site-type-out only for types with this many labels
     bootstrap: int = 1000
     baselines: bool = True
 

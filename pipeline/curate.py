@@ -17,10 +17,11 @@ import pandas as pd
 from pkasite.features.standardize import StructureError, standardize_smiles
 
 from .config import CurationConfig
+from .ingest import PER_KIND, WHOLE_COMPOUND
 
 MEASUREMENT_COLUMNS = [
     "record_id", "smiles", "inchikey", "kind", "pka", "n", "spread", "temperature_c", "method",
-    "source", "licence", "site_atom", "members", "split", "in_house", "conflict",
+    "source", "licence", "site_atom", "constant_rank", "members", "split", "in_house", "conflict",
 ]
 REJECT_COLUMNS = ["source", "record_id", "file", "row", "reason", "detail", "smiles", "value_text"]
 
@@ -108,12 +109,133 @@ def _site_atom(value: Any) -> int | None:
     return int(f)
 
 
-def _later_constant_keys(raw: pd.DataFrame) -> set:
-    """Row labels of constants that are not the first of their kind for their compound.
+RANK_INPUT_COLUMNS = ["source", "group_key", "kind", "pka", "constant_index", "constant_numbering"]
 
-    Compilations number constants over the whole compound (1, 2, ... from the most
-    acidic), whatever their kind.  A constant of index k is the first of its kind
-    when the k-1 lower constants of the compound are all of the other kind.
+
+def constant_ranks(rows: pd.DataFrame) -> pd.DataFrame:
+    """Rank each row among the constants of its kind that its source gives for the compound.
+
+    ``rows`` needs :data:`RANK_INPUT_COLUMNS` (``pka`` already on the pKaH scale for bases) and may
+    have ``inchikey``.  Rows of one source and kind belong to one compound when they share the source's
+    ``group_key`` or the standardized ``inchikey`` (a compilation may file a second constant under a
+    record drawn as the anion).  Within a compound, rows with the same constant number are replicates
+    of one constant (rows without a number together make one).  Constants are ordered by their median
+    value, strongest first (lowest acid pKa, highest base pKaH); the number only breaks ties.  How
+    the number is read depends on the source (``constant_numbering``): numbered over the whole compound
+    from the most acidic end, it says nothing about the order within a kind (a base's "a2" may be its
+    most basic constant), so the values alone give ranks 1, 2, ...; numbered per kind (1 = strongest of
+    the kind), the numbers also stand in for stronger constants whose values are not there: a lone
+    "pKa3" ranks 3.
+
+    Returns a frame on the index of ``rows``: ``constant_rank`` (1 = strongest) and ``stronger_pka``
+    (median value of the next stronger constant; NaN when none is there).
+    """
+    ranks: dict = {}
+    stronger: dict = {}
+    inchikeys = rows["inchikey"] if "inchikey" in rows else pd.Series(None, index=rows.index, dtype=object)
+    compound = _compounds(rows.index, rows["source"], rows["kind"], rows["group_key"], inchikeys)
+    groups: dict[Any, dict[int | None, list[tuple]]] = {}
+    schemes: dict[Any, tuple[str, str]] = {}
+    for label, kind, value, index, scheme in zip(rows.index, rows["kind"], rows["pka"], rows["constant_index"],
+                                                 rows["constant_numbering"]):
+        number = None if index is None or pd.isna(index) else int(index)
+        groups.setdefault(compound[label], {}).setdefault(number, []).append((label, float(value)))
+        schemes[compound[label]] = (kind, scheme if isinstance(scheme, str) else "")
+    for group, constants in groups.items():
+        kind, scheme = schemes[group]
+        ordered = _strongest_first(constants, kind, scheme)
+        for position, (rank, (_, members)) in enumerate(zip(_rank_slots(constants, scheme), ordered)):
+            for label, _ in members:
+                ranks[label] = rank
+                stronger[label] = _median(ordered[position - 1][1]) if position else np.nan
+    return pd.DataFrame({"constant_rank": pd.Series(ranks, dtype="int64"),
+                         "stronger_pka": pd.Series(stronger, dtype=float)}).reindex(rows.index)
+
+
+def unlisted_stronger_acids(rows: pd.DataFrame) -> pd.Series:
+    """Per row: how many stronger acid constants the source's numbering implies but does not list.
+
+    Numbered over the whole compound from the most acidic end, an acid constant "a3" has two lower
+    (more acidic) constants.  Those of them the source does not list could be acids or the pKaH of
+    weaker bases; when the structure has no base site at all they must be acids, so the listed value
+    is not the compound's strongest acid constant and its rank moves down by their number (a
+    carboxylic acid's missing "a1" beside an oxime's "a2").  Other rows get 0.
+    """
+    from pkasite.features.sites import find_sites
+    from pkasite.features.standardize import parse_smiles
+
+    extra = pd.Series(0, index=rows.index, dtype="int64")
+    whole = (rows["constant_numbering"] == "whole_compound") & rows["constant_index"].notna()
+    numbers: dict = {}
+    for source, key, index in zip(rows.loc[whole, "source"], rows.loc[whole, "group_key"],
+                                  rows.loc[whole, "constant_index"]):
+        numbers.setdefault((source, key), set()).add(int(index))
+    for label, r in rows[whole & (rows["kind"] == "acid")].iterrows():
+        k = int(r["constant_index"])
+        missing = k - 1 - len({n for n in numbers[(r["source"], r["group_key"])] if n < k})
+        if missing > 0:
+            sites = find_sites(parse_smiles(r["smiles"]))
+            if not any(s.kind == "base" for s in sites):
+                extra[label] = missing
+    return extra
+
+
+def _blank(value: Any) -> bool:
+    return value is None or (isinstance(value, float) and math.isnan(value)) or not str(value).strip()
+
+
+def _compounds(labels, sources, kinds, keys, inchikeys) -> dict:
+    """Row label -> compound id: rows of one source and kind linked by a shared group_key or inchikey."""
+    parent: dict = {}
+
+    def find(x):
+        while parent.setdefault(x, x) != x:
+            parent[x] = parent[parent[x]]
+            x = parent[x]
+        return x
+
+    for label, source, kind, key, inchikey in zip(labels, sources, kinds, keys, inchikeys):
+        names = [("key", source, kind, key) if not _blank(key) else ("row", label)]
+        if not _blank(inchikey):
+            names.append(("inchikey", source, kind, inchikey))
+        root = find(("row", label))
+        for name in names:
+            parent[find(name)] = root
+    return {label: find(("row", label)) for label in labels}
+
+
+def _median(members: list[tuple]) -> float:
+    return float(np.median([value for _, value in members]))
+
+
+def _strongest_first(constants: dict, kind: str, scheme: str) -> list[tuple]:
+    """Constants ``(number, rows)`` ordered strongest first by median value; the number breaks ties."""
+    sign = 1.0 if kind == "acid" else -1.0
+    # Numbered from the acidic end over the whole compound, a base's higher number is the more basic.
+    number_sign = -1 if kind == "base" and scheme == WHOLE_COMPOUND else 1
+
+    def key(item):
+        number, members = item
+        return sign * _median(members), math.inf if number is None else number_sign * number
+    return sorted(constants.items(), key=key)
+
+
+def _rank_slots(constants: dict, scheme: str) -> list[int]:
+    """The ranks the constants take, strongest first: 1..n, or with per-kind numbering the numbers given."""
+    numbers = sorted(n for n in constants if n is not None)
+    if scheme != PER_KIND or any(n < 1 for n in numbers):
+        return list(range(1, len(constants) + 1))
+    if None in constants:  # an unnumbered constant takes the first number the source leaves free
+        numbers = sorted(numbers + [min(set(range(1, len(numbers) + 2)) - set(numbers))])
+    return numbers
+
+
+def _numbering_rule_later(raw: pd.DataFrame) -> set:
+    """Rows the former rule rejected as later constants, kept only so the summary can compare.
+
+    That rule read a constant numbered k as the first of its kind only when the k-1 lower constants of
+    the compound in the file were all of the other kind; it lost, for example, every base whose more
+    acidic constants the source does not list.
     """
     groups: dict[tuple, list[tuple]] = {}
     indexed = raw[raw["constant_index"].notna()]
@@ -141,22 +263,23 @@ class CurationResult:
 def curate(raw: pd.DataFrame, cfg: CurationConfig) -> CurationResult:
     """Apply the curation rules to a raw-record table (see :mod:`pkasite.pipeline.ingest`)."""
     raw = raw.reset_index(drop=True)
-    later = _later_constant_keys(raw) if cfg.first_constant_only else set()
+    numbering_later = _numbering_rule_later(raw)
     kept, rejects = [], []
     cache: dict[tuple, Any] = {}
     for label, row in zip(raw.index, raw.to_dict("records")):
         try:
-            kept.append(_curate_row(label, row, cfg, later, cache))
+            kept.append(_curate_row(label, row, cfg, numbering_later, cache))
         except Reject as rej:
             rejects.append(_reject_row(row, rej.reason, rej.detail))
-    rows = pd.DataFrame(kept)
+    rows, later = _rank_constants(pd.DataFrame(kept), cfg)
+    rejects.extend(later)
     if cfg.inhouse_overrides_open and len(rows):
         rows, superseded = _apply_inhouse_override(rows)
         rejects.extend(superseded)
-    measurements, conflicts = _aggregate(rows, cfg)
+    measurements, conflicts, merged = _aggregate(rows, cfg)
     rejects.extend(conflicts)
     rejects_df = pd.DataFrame(rejects, columns=REJECT_COLUMNS)
-    summary = summarize(raw, measurements, rejects_df)
+    summary = summarize(raw, measurements, rejects_df, _constant_counts(merged))
     return CurationResult(measurements, rejects_df, summary)
 
 
@@ -166,7 +289,8 @@ def _reject_row(row: dict, reason: str, detail: str) -> dict:
             "value_text": str(row["value_text"])}
 
 
-def _curate_row(label, row: dict, cfg: CurationConfig, later: set, cache: dict) -> dict:
+def _curate_row(label, row: dict, cfg: CurationConfig, numbering_later: set, cache: dict) -> dict:
+    """One raw row through every row-level check; its constant rank is set afterwards."""
     if row["kind"] not in ("acid", "base"):
         raise Reject("kind_invalid", f"kind {row['kind']!r} is not acid or base")
     value = parse_value(row["value_text"], cfg)
@@ -184,9 +308,6 @@ def _curate_row(label, row: dict, cfg: CurationConfig, later: set, cache: dict) 
         raise Reject("pka_outside_window",
                      f"pKa {value:g} is outside the aqueous window {cfg.pka_min:g} to {cfg.pka_max:g}")
     site_atom = _site_atom(row["site_atom"])
-    if label in later and site_atom is None:
-        raise Reject("later_constant",
-                     f"constant {int(row['constant_index'])} is not the first of its kind and names no site")
     std = _standardized(row["smiles"], site_atom, cache)
     if isinstance(std, StructureError) and site_atom is None and str(row["smiles_fallback"] or "").strip():
         std = _standardized(row["smiles_fallback"], None, cache)
@@ -196,7 +317,37 @@ def _curate_row(label, row: dict, cfg: CurationConfig, later: set, cache: dict) 
             "row": int(row["row"]), "smiles": std.smiles, "inchikey": std.inchikey, "kind": row["kind"],
             "pka": float(value), "temperature_c": temperature, "method": str(row["method"] or "").strip(),
             "licence": row["licence"], "site_atom": std.site_atom, "split": row["split"],
-            "in_house": bool(row["in_house"]), "input_smiles": row["smiles"], "value_text": row["value_text"]}
+            "in_house": bool(row["in_house"]), "input_smiles": row["smiles"], "value_text": row["value_text"],
+            "group_key": row["group_key"], "constant_index": row["constant_index"],
+            "constant_numbering": row.get("constant_numbering") or "",
+            "numbering_rule_later": site_atom is None and label in numbering_later}
+
+
+def _rank_constants(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFrame, list[dict]]:
+    """Set ``constant_rank`` on the kept rows (None where the row names its site); with
+    ``first_constant_only`` reject the rows of rank 2 or more that name no site."""
+    if rows.empty:
+        return rows, []
+    ranked = constant_ranks(rows)
+    ranked["constant_rank"] += unlisted_stronger_acids(rows)
+    named = rows["site_atom"].notna()
+    rows = rows.assign(constant_rank=ranked["constant_rank"].astype(object).where(~named, None))
+    if not cfg.first_constant_only:
+        return rows, []
+    later = ~named & (ranked["constant_rank"] > 1)
+    rejects = [_reject_row({**r, "smiles": r["input_smiles"]}, "later_constant", _later_detail(r, stronger))
+               for r, stronger in zip(rows[later].to_dict("records"), ranked.loc[later, "stronger_pka"])]
+    return rows[~later], rejects
+
+
+def _later_detail(row: dict, stronger: float) -> str:
+    kind = row["kind"]
+    if not math.isnan(stronger):
+        why = f"a stronger {kind} constant of the compound, {stronger:g}, is kept"
+    else:
+        why = f"the source numbers it {kind} constant {int(row['constant_index'])}; no stronger value is kept"
+    return (f"{kind} constant of rank {int(row['constant_rank'])} for this compound in {row['source']} "
+            f"({why}; curation.first_constant_only=true)")
 
 
 def _standardized(smiles: str, site_atom: int | None, cache: dict):
@@ -229,17 +380,22 @@ def _joined(values) -> str:
     return ";".join(sorted({str(v) for v in values if v is not None and str(v) not in ("", "nan", "None")}))
 
 
-def _aggregate(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFrame, list[dict]]:
-    """Merge replicates of one (structure, kind, site): median, count, spread; handle conflicts."""
+def _key(value: Any) -> int:
+    return -1 if value is None or pd.isna(value) else int(value)
+
+
+def _aggregate(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFrame, list[dict], list[dict]]:
+    """Merge replicates of one (structure, kind, site, constant rank): median, count, spread; handle conflicts.
+
+    Returns the measurements, the rejects of conflicting groups and the rows that became members.
+    """
     if rows.empty:
-        return pd.DataFrame(columns=MEASUREMENT_COLUMNS), []
+        return pd.DataFrame(columns=MEASUREMENT_COLUMNS), [], []
     groups: dict[tuple, list[dict]] = {}
     for r in rows.to_dict("records"):
-        a = r["site_atom"]
-        site_key = -1 if a is None or pd.isna(a) else int(a)
-        groups.setdefault((r["inchikey"], r["kind"], site_key), []).append(r)
-    out, conflicts = [], []
-    for (_, kind, site_key), grp in groups.items():
+        groups.setdefault((r["inchikey"], r["kind"], _key(r["site_atom"]), _key(r["constant_rank"])), []).append(r)
+    out, conflicts, merged = [], [], []
+    for (_, kind, site_key, rank_key), grp in groups.items():
         values = np.array([r["pka"] for r in grp], float)
         spread = float(values.max() - values.min())
         conflict = spread > cfg.conflict_spread
@@ -252,6 +408,7 @@ def _aggregate(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFrame, l
                  "value_text": str(r["value_text"])}
                 for r in grp)
             continue
+        merged.extend(grp)
         first = grp[0]
         t = [r["temperature_c"] for r in grp if not pd.isna(r["temperature_c"])]
         out.append({
@@ -261,17 +418,44 @@ def _aggregate(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFrame, l
             "method": _joined(r["method"] for r in grp), "source": _joined(r["source"] for r in grp),
             "licence": _joined(r["licence"] for r in grp),
             "site_atom": None if site_key < 0 else int(site_key),
+            "constant_rank": None if rank_key < 0 else int(rank_key),
             "members": ";".join(f"{r['source']}:{r['record_id']}" for r in grp),
             "split": _joined(r["split"] for r in grp), "in_house": any(bool(r["in_house"]) for r in grp),
             "conflict": bool(conflict),
         })
     result = pd.DataFrame(out, columns=MEASUREMENT_COLUMNS)
-    result["site_atom"] = result["site_atom"].astype("Int64")
-    return result, conflicts
+    for col in ("site_atom", "constant_rank"):
+        result[col] = result[col].astype("Int64")
+    return result, conflicts, merged
 
 
-def summarize(raw: pd.DataFrame, measurements: pd.DataFrame, rejects: pd.DataFrame) -> dict:
-    """Counts per step and reject reason; checks that every input row is accounted for."""
+def _constant_counts(merged: list[dict]) -> dict:
+    """Rows kept as constants of rank 2 or more, and rows kept that the former numbering rule rejected."""
+    recovered = [r for r in merged if r["numbering_rule_later"]]
+    return {
+        "later_constants_kept": sum(1 for r in merged if _key(r["constant_rank"]) > 1),
+        "first_constants_recovered": sum(1 for r in recovered if _key(r["constant_rank"]) == 1),
+        "rows_recovered": len(recovered),
+    }
+
+
+def _by_rank(measurements: pd.DataFrame) -> dict:
+    if not len(measurements):
+        return {}
+    ranks = measurements["constant_rank"]
+    out = {str(int(k)): int(v) for k, v in ranks.dropna().astype(int).value_counts().sort_index().items()}
+    if ranks.isna().any():
+        out["site_given"] = int(ranks.isna().sum())
+    return out
+
+
+def summarize(raw: pd.DataFrame, measurements: pd.DataFrame, rejects: pd.DataFrame,
+              constants: dict | None = None) -> dict:
+    """Counts per step and reject reason; checks that every input row is accounted for.
+
+    ``constants`` (from :func:`curate`) adds how many later constants were kept and how many rows were
+    kept that the former numbering rule rejected as later constants.
+    """
     merged = int(measurements["n"].sum()) if len(measurements) else 0
     summary = {
         "rows_in": int(len(raw)),
@@ -282,8 +466,10 @@ def summarize(raw: pd.DataFrame, measurements: pd.DataFrame, rejects: pd.DataFra
         "rows_kept": merged,
         "measurements": int(len(measurements)),
         "measurements_by_kind": {k: int(v) for k, v in measurements["kind"].value_counts().sort_index().items()},
+        "measurements_by_rank": _by_rank(measurements),
         "replicate_groups": int((measurements["n"] > 1).sum()) if len(measurements) else 0,
         "flagged_conflicts": int(measurements["conflict"].sum()) if len(measurements) else 0,
+        **(constants or {"later_constants_kept": 0, "first_constants_recovered": 0, "rows_recovered": 0}),
     }
     summary["accounted"] = summary["rows_kept"] + summary["rows_rejected"] == summary["rows_in"]
     if not summary["accounted"]:
@@ -299,7 +485,11 @@ def format_summary(summary: dict) -> str:
     lines.append(f"rows kept          {summary['rows_kept']:>7}")
     lines.append(f"measurements       {summary['measurements']:>7}  "
                  + ", ".join(f"{k} {v}" for k, v in summary["measurements_by_kind"].items()))
+    lines.append("  by constant rank  " + ", ".join(f"{k}: {v}" for k, v in summary["measurements_by_rank"].items()))
     lines.append(f"replicate groups   {summary['replicate_groups']:>7}")
+    lines.append(f"later constants kept {summary['later_constants_kept']:>5}  (rank 2 or more of their kind)")
+    lines.append(f"rows recovered     {summary['rows_recovered']:>7}  (kept, rejected by the former numbering rule; "
+                 f"{summary['first_constants_recovered']} of them rank 1)")
     if summary["flagged_conflicts"]:
         lines.append(f"flagged conflicts  {summary['flagged_conflicts']:>7}")
     return "\n".join(lines)

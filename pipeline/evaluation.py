@@ -30,24 +30,72 @@ ATTRIBUTION = "site_attribution_check"
 RESIDUAL_COLUMNS = ["level", "mol_id", "kind", "site_type", "atom", "similarity", "label", "pred", "residual"]
 
 
-def molecule_constants(sites: pd.DataFrame, site_pred: np.ndarray, given_atom: np.ndarray) -> pd.DataFrame:
-    """Per molecule (index ``mol_id``): ``pred`` and the site row ``row`` it comes from.
+def molecule_constants(sites: pd.DataFrame, site_pred: np.ndarray, given_atom: np.ndarray,
+                       interactions: dict | None = None) -> pd.DataFrame:
+    """Per molecule (index ``mol_id``): the predicted constant ``pred`` and the site row ``row`` it is
+    credited to.
 
-    ``sites`` needs ``mol_id``, ``kind`` and ``atom``; ``given_atom`` holds, per ``mol_id``, the site
-    atom named in the data (NaN when none).  Molecules without any prediction are left out.
+    A site atom named in the data (``given_atom`` per mol_id, NaN when none) gives that site's own
+    prediction.  Otherwise the constant is the measurement's macroscopic constant of its kind and rank
+    (first acid step, or first base step counted from the basic end) of the molecule's microstates
+    (:class:`~pkasite.models.microstates.Microstates`, all its sites of both kinds, pair terms from
+    ``interactions``: mol_id -> (rows, W, exclusive); without an entry the sites are independent), credited to the
+    rank-th strongest candidate site.  Reads ``mol_id``, ``kind``, ``atom`` and, when present, ``role``
+    and ``rank``; never the value or the site it was attached to.
     """
+    from pkasite.models.microstates import Microstates, weak_sites
+    interactions = interactions or {}
+    prior = sites["prior"].to_numpy() if "prior" in sites.columns else np.full(len(sites), 7.0)
     mol = sites["mol_id"].to_numpy()
     kind = sites["kind"].to_numpy()
     atom = sites["atom"].to_numpy()
+    role = sites["role"].to_numpy() if "role" in sites.columns else np.full(len(sites), "candidate")
+    rank = sites["rank"].to_numpy() if "rank" in sites.columns else np.ones(len(sites), int)
     pred = np.asarray(site_pred, float)
-    given = np.asarray(given_atom, float)[mol]
-    ok = ~np.isnan(pred) & (np.isnan(given) | (atom == given))
-    # sort key: acids ascending, bases descending; the first row per molecule is its constant
-    key = np.where(kind == "acid", pred, -pred)
-    order = np.lexsort((np.arange(len(mol)), key, mol))
-    order = order[ok[order]]
-    first = order[np.r_[True, mol[order][1:] != mol[order][:-1]]] if len(order) else order
-    return pd.DataFrame({"pred": pred[first], "row": first}, index=pd.Index(mol[first], name="mol_id"))
+    given = np.asarray(given_atom, float)
+    out_mol, out_pred, out_row = [], [], []
+    order = np.argsort(mol, kind="stable")
+    bounds = np.flatnonzero(np.r_[True, mol[order][1:] != mol[order][:-1], True])
+    for a, b in zip(bounds[:-1], bounds[1:]):
+        rows = order[a:b]
+        m = int(mol[rows[0]])
+        cand = rows[role[rows] == "candidate"]
+        cand = cand[~np.isnan(pred[cand])]
+        if not len(cand):
+            continue
+        k = kind[cand[0]]
+        r = int(rank[cand[0]])
+        if not np.isnan(given[m]) and np.any(atom[cand] == given[m]):
+            row = int(cand[atom[cand] == given[m]][0])
+            out_mol.append(m), out_pred.append(pred[row]), out_row.append(row)
+            continue
+        strongest = cand[np.argsort(pred[cand] if k == "acid" else -pred[cand], kind="stable")]
+        row = int(strongest[min(r, len(strongest)) - 1])
+        value = pred[row]
+        ok = rows[~np.isnan(pred[rows])]
+        coupled = len(cand) > 1
+        if not coupled and m in interactions:
+            irows, iW, _ = interactions[m]
+            i = int(np.flatnonzero(irows == row)[0])
+            coupled = bool(np.any(iW[i] != 0))
+        # a lone candidate without pair terms is independent of the other sites: its macro constant is
+        # its site value exactly (the binding polynomial factorizes), so the enumeration is skipped
+        if len(ok) > 1 and coupled:
+            W = ex = None
+            if m in interactions:
+                irows, iW, iex = interactions[m]
+                pos = {int(x): i for i, x in enumerate(irows)}
+                sel = [pos[int(x)] for x in ok]
+                W, ex = iW[np.ix_(sel, sel)], iex[np.ix_(sel, sel)]
+            else:
+                ex = (atom[ok][:, None] == atom[ok][None, :]) & (kind[ok][:, None] != kind[ok][None, :])
+            hold = weak_sites(kind[ok], prior[ok], pred[ok])
+            c = Microstates(pred[ok], kind[ok], W, exclusive=ex, hold=hold).constant_of_kind(k, r)
+            if np.isfinite(c):
+                value = c
+        out_mol.append(m), out_pred.append(value), out_row.append(row)
+    return pd.DataFrame({"pred": np.array(out_pred, float), "row": np.array(out_row, int)},
+                        index=pd.Index(np.array(out_mol, int), name="mol_id"))
 
 
 def given_atoms(table) -> np.ndarray:
@@ -57,7 +105,7 @@ def given_atoms(table) -> np.ndarray:
 
 def constants_by_mol(table, site_pred: np.ndarray) -> np.ndarray:
     """Per mol_id of a :class:`SiteTable`, the molecule's predicted constant (NaN where none)."""
-    c = molecule_constants(table.sites, site_pred, given_atoms(table))
+    c = molecule_constants(table.sites, site_pred, given_atoms(table), table.interactions())
     out = np.full(len(table.molecules), np.nan)
     out[c.index.to_numpy()] = c["pred"].to_numpy()
     return out
@@ -73,14 +121,15 @@ def attributed_predictions(sites: pd.DataFrame, site_pred: np.ndarray) -> np.nda
 
 def site_known(table) -> np.ndarray:
     """Per mol_id: the site of the value is known without it (one candidate site, or given in the data)."""
-    n_sites = table.sites.groupby("mol_id").size().reindex(range(len(table.molecules)), fill_value=0)
+    cand = table.sites[table.sites["role"] == "candidate"]
+    n_sites = cand.groupby("mol_id").size().reindex(range(len(table.molecules)), fill_value=0)
     return (n_sites.to_numpy() == 1) | ~np.isnan(given_atoms(table))
 
 
 def residual_table(table, site_pred: np.ndarray, similarity: np.ndarray) -> pd.DataFrame:
     """Molecule-level and known-site residuals (value-free predictions minus values), see module doc."""
     sites = table.sites
-    c = molecule_constants(sites, site_pred, given_atoms(table))
+    c = molecule_constants(sites, site_pred, given_atoms(table), table.interactions())
     rows = c["row"].to_numpy()
     labels = sites["label"].to_numpy()
     mol = pd.DataFrame({"level": "molecule", "mol_id": c.index.to_numpy(), "kind": sites["kind"].to_numpy()[rows],

@@ -14,9 +14,13 @@ import pandas as pd
 
 RAW_COLUMNS = [
     "source", "file", "row", "record_id", "smiles", "smiles_fallback", "kind", "value_text", "is_pkb",
-    "constant_index", "group_key", "temperature_text", "method", "site_atom", "licence",
+    "constant_index", "constant_numbering", "group_key", "temperature_text", "method", "site_atom", "licence",
     "non_aqueous", "pressure", "assessment", "split", "in_house",
 ]
+
+# How a source numbers a compound's constants (``constant_numbering``; empty when it does not):
+WHOLE_COMPOUND = "whole_compound"  # 1, 2, ... from the most acidic over all constants of the compound, any kind
+PER_KIND = "per_kind"              # each kind counted on its own, 1 = the strongest of that kind
 
 INHOUSE_REQUIRED = ("smiles", "pka", "kind")
 INHOUSE_OPTIONAL = ("id", "temperature_c", "site_atom", "method", "notes")
@@ -85,7 +89,8 @@ def parse_dwpka(path: Path, kind: str, split: str | None, licence: str, source: 
         "smiles_fallback": df["Canonical_QSARr"].tolist(), "kind": [kind] * n,
         "value_text": df["pKa"].tolist(), "is_pkb": [False] * n,
         "constant_index": [constant_index_from_type(t) for t in df["type"]],
-        "group_key": df["InChI Key_QSARr"].tolist(), "temperature_text": df["temp"].tolist(),
+        "constant_numbering": [WHOLE_COMPOUND] * n, "group_key": df["InChI Key_QSARr"].tolist(),
+        "temperature_text": df["temp"].tolist(),
         "method": df["method"].tolist(), "licence": [licence] * n, "non_aqueous": [""] * n,
         "pressure": [""] * n, "assessment": [""] * n, "split": [split] * n, "in_house": [False] * n,
     }, n)
@@ -118,6 +123,7 @@ def parse_iupac(path: Path, kind: str | None, split: str | None, licence: str, s
         "source": [source] * n, "file": [Path(path).name] * n, "row": range(1, n + 1),
         "record_id": df["unique_ID"].tolist(), "smiles": df["SMILES"].tolist(), "kind": kinds,
         "value_text": df["pka_value"].tolist(), "is_pkb": pkb, "constant_index": index,
+        "constant_numbering": [PER_KIND] * n,
         "group_key": df["unique_ID"].tolist(), "temperature_text": temperature.tolist(),
         "method": df["method"].tolist(), "licence": [licence] * n,
         "non_aqueous": df["cosolvent"].str.strip().tolist(), "pressure": df["pressure"].str.strip().tolist(),
@@ -144,7 +150,7 @@ def parse_inhouse(path: Path, licence: str = "in-house") -> pd.DataFrame:
         "source": [f"inhouse:{path.name}"] * n, "file": [path.name] * n, "row": range(1, n + 1),
         "record_id": ids, "smiles": df["smiles"].tolist(),
         "kind": [str(k).strip().lower() for k in df["kind"]], "value_text": df["pka"].tolist(),
-        "is_pkb": [False] * n, "constant_index": [None] * n, "group_key": ids,
+        "is_pkb": [False] * n, "constant_index": [None] * n, "constant_numbering": [""] * n, "group_key": ids,
         "temperature_text": col("temperature_c"), "method": col("method"), "site_atom": col("site_atom"),
         "licence": [licence] * n, "non_aqueous": [""] * n, "pressure": [""] * n, "assessment": [""] * n,
         "split": [None] * n, "in_house": [True] * n,

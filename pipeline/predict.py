@@ -18,13 +18,16 @@ from pkasite.features.site_features import featurize_sites
 from pkasite.features.sites import find_sites, load_catalog
 from pkasite.features.standardize import StructureError, quiet_rdkit, standardize_mol
 from pkasite.models.domain import similarity_bin, tanimoto_max
-from pkasite.models.microstates import (fraction_neutral_form, macro_pkas, major_protonation, mean_charge)
+from pkasite.features.site_pairs import pair_geometry
+from pkasite.models.microstates import (MAX_EXACT_SITES, Microstates, default_interaction_model, exclusive_pairs,
+                                        weak_sites)
 
 from .bundle import ModelBundle
 
 MOLECULE_COLUMNS = ["id", "smiles", "status", "acid_pka", "acid_pka_low", "acid_pka_high", "base_pka",
-                    "base_pka_low", "base_pka_high", "macro_pkas", "charge_at_ph", "major_species",
-                    "fraction_neutral", "in_domain", "warnings"]
+                    "base_pka_low", "base_pka_high", "macro_pkas", "macro_pkas_all", "isoelectric_ph",
+                    "charge_at_ph", "major_species", "fraction_neutral", "in_domain", "warnings"]
+WINDOW = (0.0, 14.0)
 SITE_COLUMNS = ["id", "atom", "site_type", "kind", "pka", "pka_low", "pka_high", "similarity", "in_domain",
                 "warnings"]
 MAX_HEAVY_ATOMS = 300
@@ -72,7 +75,7 @@ def prepare_input(smiles) -> PreparedInput:
     if any(a.GetFormalCharge() for a in mol.GetAtoms()):
         out.warnings.append("charged input: neutralized where a proton could be added or removed")
     try:
-        std = standardize_mol(mol)
+        std = standardize_mol(mol, with_inchikey=False)
     except StructureError as exc:
         return PreparedInput("invalid_structure", [str(exc)])
     elements = {a.GetSymbol() for a in std.mol.GetAtoms()} - ORGANIC
@@ -106,6 +109,19 @@ def _major_species(mol: Chem.Mol, atoms, kinds, protonated) -> str:
         return Chem.MolToSmiles(mol)
 
 
+def molecule_microstates(mol: Chem.Mol, atoms, kinds, pka, priors, interactions,
+                         window: tuple[float, float] = WINDOW) -> Microstates:
+    """The molecule's microstates: its sites with their predicted pKa, pair terms from the bundle's
+    interaction model, tautomeric pairs exclusive, weak sites held (see :mod:`pkasite.models.microstates`)."""
+    kinds = np.asarray(kinds)
+    W = ex = None
+    if len(atoms) > 1:
+        d, conj = pair_geometry(mol, atoms)
+        W, ex = interactions.matrix(d, conj, kinds), exclusive_pairs(kinds, d, conj)
+    return Microstates(np.asarray(pka, float), kinds, W, window=window, exclusive=ex,
+                       hold=weak_sites(kinds, priors, pka, window))
+
+
 def _site_warnings(bundle: ModelBundle, site_type: str, kind: str, similarity: float) -> list[str]:
     dom = bundle.domain
     warns = []
@@ -118,8 +134,12 @@ def _site_warnings(bundle: ModelBundle, site_type: str, kind: str, similarity: f
 
 
 def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4, level: float = INTERVAL_LEVEL,
-                    explain: bool = False) -> tuple[pd.DataFrame, pd.DataFrame]:
+                    explain: bool = False, window: tuple[float, float] = WINDOW) -> tuple[pd.DataFrame, pd.DataFrame]:
     """Per-molecule and per-site predictions for parallel lists of ids and SMILES.
+
+    Site values are microscopic constants of the neutral molecule; every molecule-level value
+    (``acid_pka``, ``base_pka``, ``macro_pkas`` inside ``window``, ``macro_pkas_all``, ``isoelectric_ph``,
+    ``charge_at_ph``, ``fraction_neutral``, ``major_species``) comes from one microstate model.
 
     With ``explain`` the per-site table gets an ``explanation`` column: the largest feature
     contributions of each site in chemistry words (see :mod:`pkasite.pipeline.explain`).
@@ -127,13 +147,16 @@ def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4, level: fl
     ids, smiles = list(ids), list(smiles)
     prepared = [prepare_input(s) for s in smiles]
     catalog = load_catalog()
-    items, owners = [], []
+    interactions = bundle.interactions or default_interaction_model()
+    items, owners, priors = [], [], []
     for i, p in enumerate(prepared):
         if p.mol is None:
             continue
         for s in find_sites(p.mol, catalog):
             items.append((p.mol, s.atom, s.kind, s.type))
             owners.append(i)
+            priors.append(s.prior)
+    priors = np.array(priors, float)
     n = len(items)
     if n:
         X = featurize_sites(items, bundle.settings, bundle.site_types)
@@ -182,18 +205,36 @@ def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4, level: fl
                               "similarity": round(float(sim[j]), 3), "in_domain": not sw, "warnings": "; ".join(sw),
                               **({"explanation": phrases[j]} if explain else {})})
         k, v = kinds[idx], pka[idx]
-        for kind, pick in (("acid", np.argmin), ("base", np.argmax)):
-            sel = idx[k == kind]
-            if len(sel):
-                j = sel[pick(pka[sel])]
-                row[f"{kind}_pka"] = round(float(pka[j]), 2)
-                row[f"{kind}_pka_low"] = round(float(pka[j] - mol_half[j]), 2)
-                row[f"{kind}_pka_high"] = round(float(pka[j] + mol_half[j]), 2)
-        row["macro_pkas"] = ";".join(f"{x:.2f}" for x in macro_pkas(v)) if len(v) else ""
         charge0 = float(Chem.GetFormalCharge(p.mol))
-        row["charge_at_ph"] = round(mean_charge(v, k, ph, charge0), 3)
-        row["fraction_neutral"] = round(fraction_neutral_form(v, k, ph), 4) if charge0 == 0 else 0.0
-        row["major_species"] = _major_species(p.mol, [items[j][1] for j in idx], k, major_protonation(v, ph))
+        row["macro_pkas"] = row["macro_pkas_all"] = ""
+        if len(idx):
+            ms = molecule_microstates(p.mol, [items[j][1] for j in idx], k, v, priors[idx], interactions, window)
+            for kind, pick in (("acid", np.argmin), ("base", np.argmax)):
+                sel = idx[k == kind]
+                if len(sel):
+                    j = sel[pick(pka[sel])]  # the site the constant is credited to (interval, domain)
+                    value = ms.constant_of_kind(kind)
+                    value = float(pka[j]) if not np.isfinite(value) else value
+                    row[f"{kind}_pka"] = round(value, 2)
+                    row[f"{kind}_pka_low"] = round(value - float(mol_half[j]), 2)
+                    row[f"{kind}_pka_high"] = round(value + float(mol_half[j]), 2)
+            macro, _ = ms.macro_constants()
+            inside = macro[(macro >= window[0]) & (macro <= window[1])]
+            row["macro_pkas"] = ";".join(f"{x:.2f}" for x in inside)
+            row["macro_pkas_all"] = ";".join(f"{x:.2f}" for x in macro)
+            pi = ms.isoelectric_point(charge0) if (k == "acid").any() and (k == "base").any() else None
+            row["isoelectric_ph"] = round(pi, 2) if pi is not None else None
+            row["charge_at_ph"] = round(ms.mean_charge(ph, charge0), 3)
+            row["fraction_neutral"] = round(ms.neutral_fraction(ph), 4) if charge0 == 0 else 0.0
+            row["major_species"] = _major_species(p.mol, [items[j][1] for j in idx], k, ms.major_protonation(ph))
+            n_free = len(idx) - int(weak_sites(k, priors[idx], v, window).sum())
+            if n_free > MAX_EXACT_SITES:
+                warns.append(f"{n_free} sites: the {n_free - MAX_EXACT_SITES} farthest outside the window held "
+                             "in their dominant form")
+        else:
+            row["charge_at_ph"] = round(charge0, 3)
+            row["fraction_neutral"] = 1.0 if charge0 == 0 else 0.0
+            row["major_species"] = Chem.MolToSmiles(p.mol)
         if not len(idx):
             warns.append("no ionizable site found")
         if Descriptors.HeavyAtomCount(p.mol) > bundle.domain["max_heavy_atoms"]:

@@ -104,7 +104,8 @@ def site_bounds(prep: Prepared) -> np.ndarray:
     bound of a base site's pKaH.  Compilations also list later constants (a phenol's 10 beside a
     carboxylic acid), so a bound is set only where the site's catalog range can hold it (an acid
     site whose range reaches up to the value, a base site whose range reaches down to it), and
-    never for molecules measured at an explicit site atom.  Labeled sites are 0.
+    never for molecules measured at an explicit site atom or for later constants (rank > 1).
+    Labeled sites and context sites (the other kind) are 0.
     """
     sites = prep.sites
     by_name = load_catalog().by_name
@@ -115,7 +116,8 @@ def site_bounds(prep: Prepared) -> np.ndarray:
     low = np.array([by_name[t].low for t in types])
     high = np.array([by_name[t].high for t in types])
     possible = np.where(acid, label <= high, label >= low)
-    censored = ~sites["labeled"].to_numpy() & ~explicit & possible
+    first = (sites["role"].to_numpy() == "candidate") & (sites["rank"].to_numpy() == 1)
+    censored = ~sites["labeled"].to_numpy() & ~explicit & possible & first
     return np.where(censored, np.where(acid, 1, -1), 0).astype(np.int8)
 
 
@@ -126,7 +128,9 @@ def site_job(prep: Prepared, train_mols: np.ndarray, cfg: RunConfig, only_kinds=
     in_train = np.isin(sites["mol_id"].to_numpy(), train_mols)
     bound = site_bounds(prep) if cfg.model.censored_sites else np.zeros(len(sites), np.int8)
     rows = np.flatnonzero(in_train & (sites["labeled"].to_numpy() | (bound != 0)))
-    return FitJob(prep.X, sites["label"].to_numpy(), sites["kind"].to_numpy(), rows, cfg.model.per_kind,
+    # the labeled site's target is the value plus its microstate offset (site pKa - molecule constant)
+    y = sites["label"].to_numpy() + np.where(sites["labeled"].to_numpy(), sites["offset"].to_numpy(), 0.0)
+    return FitJob(prep.X, y, sites["kind"].to_numpy(), rows, cfg.model.per_kind,
                   frozenset(only_kinds) if only_kinds is not None else None, bound)
 
 
@@ -146,11 +150,17 @@ def site_jobs(prep: Prepared, splits, cfg: RunConfig, unseen_type: bool = False)
     """
     kinds = prep.sites["kind"].to_numpy()
     types = prep.sites["site_type"].to_numpy()
+    candidate = prep.sites["role"].to_numpy() == "candidate"
     jobs = []
     for name, tr, te in splits:
-        job = site_job(prep, tr, cfg, only_kinds=set(kinds[_test_rows(prep, te)]))
+        test = _test_rows(prep, te)
         if unseen_type:
+            # only the held-out type's kind: its molecules' other-kind sites stay unpredicted (they carry
+            # no pair term with the measured kind's sites; see InteractionModel.opposite_factor)
+            job = site_job(prep, tr, cfg, only_kinds=set(kinds[test[candidate[test]]]))
             job = replace(job, rows=job.rows[types[job.rows] != name])
+        else:
+            job = site_job(prep, tr, cfg, only_kinds=set(kinds[test]))
         jobs.append(job)
     return jobs
 
@@ -197,7 +207,9 @@ def predicted_assignments(prep: Prepared, site_pred: np.ndarray, cfg: RunConfig)
     catalog = load_catalog()
     sites = prep.sites
     explicit = prep.table.molecules["site_atom"].notna().to_numpy()
-    for mol_id, rows in sites.groupby("mol_id").indices.items():
+    candidate = (sites["role"] == "candidate").to_numpy()
+    for mol_id, rows in sites[candidate].groupby("mol_id").indices.items():
+        rows = np.flatnonzero(candidate)[rows]
         if len(rows) == 1 or explicit[mol_id]:
             continue
         cand = [Site(int(sites["atom"].iat[r]), sites["site_type"].iat[r], sites["kind"].iat[r],
@@ -206,7 +218,8 @@ def predicted_assignments(prep: Prepared, site_pred: np.ndarray, cfg: RunConfig)
         label = float(sites["label"].iat[rows[0]])
         yield rows, predicted, label, assign_site(prep.table.mols[mol_id], cand[0].kind, sites=cand,
                                                   predicted=predicted, value=label,
-                                                  tolerance=cfg.model.assignment_tolerance, catalog=catalog)
+                                                  tolerance=cfg.model.assignment_tolerance, catalog=catalog,
+                                                  rank=int(sites["rank"].iat[rows[0]]))
 
 
 def reassign_labels(prep: Prepared, cfg: RunConfig, clock: StageClock | None = None) -> list[int]:
@@ -241,11 +254,36 @@ def reassign_labels(prep: Prepared, cfg: RunConfig, clock: StageClock | None = N
                 confidence[rows] = new.confidence
             sites["labeled"] = labeled
             sites["confidence"] = confidence
+            shift = ""
+            if cfg.model.microstate_targets:
+                sites["offset"] = microstate_offsets(prep, pred)
+                shift = f"; microstate offsets on {int((sites['offset'] != 0).sum())} labels"
             moved_per_round.append(moved)
-            stage.note = f"{moved} labels moved ({moved / max(n_mols, 1):.1%} of {n_mols} molecules)"
+            stage.note = f"{moved} labels moved ({moved / max(n_mols, 1):.1%} of {n_mols} molecules){shift}"
         if moved <= cfg.model.assignment_stop_fraction * n_mols:
             break
     return moved_per_round
+
+
+def microstate_offsets(prep: Prepared, site_pred: np.ndarray, limit: float = 3.0) -> np.ndarray:
+    """Per site row: for the labeled site, its predicted site pKa minus the molecule's predicted
+    constant (the microstate model's macro constant of the measured kind and rank); 0 elsewhere.
+
+    A molecule-level value is a macroscopic constant: two equivalent amines give a constant log10(2)
+    above either site, a zwitterion's constants are pulled apart by the charges.  Training the labeled
+    site on ``value + offset`` makes the site model's predictions reproduce the measured constant
+    through the microstate model instead of absorbing those effects into the site value.
+    """
+    sites = prep.sites
+    out = np.zeros(len(sites))
+    const = E.molecule_constants(sites, site_pred, E.given_atoms(prep.table), prep.table.interactions())
+    lab = np.flatnonzero(sites["labeled"].to_numpy())
+    mol_of = sites["mol_id"].to_numpy()[lab]
+    macro = const["pred"].reindex(mol_of).to_numpy()
+    delta = site_pred[lab] - macro
+    explicit = prep.table.molecules["site_atom"].notna().to_numpy()[mol_of]
+    out[lab] = np.where(np.isfinite(delta) & ~explicit, np.clip(delta, -limit, limit), 0.0)
+    return out
 
 
 # ----------------------------------------------------------------------------- baselines
@@ -340,7 +378,7 @@ def cross_validate(prep: Prepared, cfg: RunConfig, clock: StageClock | None = No
             regs = fit_many(jobs, booster_params(cfg.model), cfg.seed)
             with_sim = scheme in ("molecule", "scaffold")
             site_pred, fold, sim = site_oof(prep, splits, regs[:len(splits)], with_similarity=with_sim)
-            const = E.molecule_constants(prep.sites, site_pred, E.given_atoms(prep.table))
+            const = E.molecule_constants(prep.sites, site_pred, E.given_atoms(prep.table), prep.table.interactions())
             by_model = {E.HEADLINE: E.constants_by_mol(prep.table, site_pred),
                         E.ATTRIBUTION: E.attributed_predictions(prep.sites, site_pred)}
             if cfg.cv.baselines:

@@ -192,6 +192,7 @@ def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_
     one to include earlier stages (pull, curation) in the same table.
     """
     from pkasite.features.sites import load_catalog
+    from pkasite.models.microstates import default_interaction_model
 
     from . import evaluation as E
     from . import train as T
@@ -244,7 +245,8 @@ def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_
         card["assignment"] = {**prep.table.assignment_stats(), "moved_per_round": moved}
         bundle = ModelBundle(final, prep.settings, prep.site_types, load_catalog().version, calibrator, domain,
                              train_bits, card, cv.residuals, cv.metrics, cv.predictions, curation,
-                             molecule_calibrator=mol_calibrator, coverage=coverage)
+                             molecule_calibrator=mol_calibrator, coverage=coverage,
+                             interactions=default_interaction_model())
         bundle_path = save_bundle(bundle, out_dir / "model")
         cv_metrics = write_table(cv.metrics, out_dir / "cv_metrics.csv")
         cv_preds = write_table(cv.predictions, out_dir / "cv_predictions.parquet")

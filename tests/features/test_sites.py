@@ -140,6 +140,28 @@ KNOWN = [
     ("N-phenacylpyridinium", "O=C([CH2:1][n+]1ccccc1)c1ccccc1", PHYS),
     ("9-(methoxycarbonyl)fluorene", "COC(=O)[CH:1]1c2ccccc2-c2ccccc21", PHYS),
     ("aminomethylenemalononitrile-type tricyanovinylamine", "N#CC(C#N)=C(C#N)[NH2:1]", PHYS),
+    # amino groups on benzo-fused azoles: 2-aminobenzimidazole protonates on the ring N (about 7.5), the
+    # NH2 is part of that amidine; an NH2 on the benzo ring cannot reach the imidazole N (its double bond
+    # goes to C2) and is an aniline-like base of its own, whichever N-H tautomer is drawn. Across a fused
+    # six-ring it does reach the ring N: 5-aminoquinoline protonates on N1 (5.5)
+    ("2-aminobenzimidazole", "Nc1[n:2]c2ccccc2[nH:1]1", HB),
+    ("5-aminobenzimidazole", "[NH2:2]c1ccc2[nH:1]c[n:2]c2c1", HB),
+    ("5-aminobenzimidazole, other N-H tautomer", "[NH2:2]c1ccc2[n:2]c[nH:1]c2c1", HB),
+    ("4-aminobenzimidazole", "[NH2:2]c1cccc2[nH:1]c[n:2]c12", HB),
+    ("1-methylbenzimidazol-5-amine", "Cn1c[n:2]c2cc([NH2:2])ccc21", HB),
+    ("benzothiazol-5-amine", "[NH2:2]c1ccc2sc[n:2]c2c1", HB),
+    ("5-aminoquinoline", "Nc1cccc2[n:2]cccc12", CRC),
+    # amides on the 2- or 4-position of an azine: the ring N takes the anion's charge, N-H about 10.5-12;
+    # on the 3-position it cannot, and the N-H stays as weak as an anilide's (HB)
+    ("N-(2-pyridyl)acetamide", "CC(=[O:2])[NH:1]c1cccc[n:2]1", HB),
+    ("N-(4-pyridyl)acetamide", "CC(=[O:2])[NH:1]c1cc[n:2]cc1", HB),
+    ("N-(2-quinolyl)acetamide", "CC(=[O:2])[NH:1]c1ccc2ccccc2[n:2]1", HB),
+    ("N-(3-pyridyl)acetamide", "CC(=[O:2])Nc1ccc[n:2]c1", HB),
+    ("piroxicam", "CN1C(C(=[O:2])[NH:1]c2cccc[n:2]2)=C([OH:1])c2ccccc2S1(=O)=O", DRUG),
+    # 1,4-benzodiazepin-2-ones: N1-H acid conjugated with the C5=N4 imine (nitrazepam 10.8, clonazepam
+    # 10.5) and the imine N as base (nitrazepam 3.2); diazepam above is N-methylated and has no acid site
+    ("nitrazepam", "[O:2]=C1C[N:2]=C(c2ccccc2)c2cc([N+](=O)[O-])ccc2[NH:1]1", DRUG),
+    ("oxazepam", "[OH:1]C1[N:2]=C(c2ccccc2)c2cc(Cl)ccc2[NH:1]C1=[O:2]", DRUG),
 ]
 
 
@@ -187,6 +209,10 @@ def test_enough_reference_molecules():
         ("N#CCc1ccc([N+](=O)[O-])cc1", 2, "nitroaryl_acetonitrile_ch"),  # PHYS
         ("CN=c1sccn1C", 1, "isourea_n"),  # 2-iminothiazoline, isothiourea-like base; HB
         ("O=C1CCCCC1=O", 2, "cyclic_alpha_dione_ch"),  # cyclohexane-1,2-dione; HB
+        ("Nc1ccc2[nH]cnc2c1", 0, "aniline"),  # 5-aminobenzimidazole: benzo-ring NH2 is aniline-like; HB
+        ("CC(=O)Nc1ccccn1", 3, "acyl_azinylamine_nh"),  # N-(2-pyridyl)acetamide N-H; HB
+        ("CC(=O)Nc1ncccn1", 3, "acyl_heteroarylamine_nh"),  # pyrimidin-2-yl: the doubly flanked type wins; HB
+        ("O=C1CN=C(c2ccccc2Cl)c2cc([N+](=O)[O-])ccc2N1", 21, "acyl_aminoaryl_imine_nh"),  # clonazepam; DRUG
     ],
 )
 def test_site_types_of_textbook_groups(smiles, atom, site_type):

@@ -31,3 +31,98 @@ def test_glycine_like_zwitterion_at_physiological_ph():
     assert mean_charge(pka, kinds, 7.4) == pytest.approx(0.0, abs=0.01)
     assert fraction_neutral_form(pka, kinds, 7.4) < 1e-6
     assert list(major_protonation(pka, 7.4)) == [False, True]
+
+
+# ----------------------------------------------------------------------------- interacting sites
+
+from pkasite.models.microstates import (InteractionModel, Microstates, default_interaction_model,  # noqa: E402
+                                        exclusive_pairs, read_calibration, weak_sites)
+
+
+def _pair(w: float) -> np.ndarray:
+    return np.array([[0.0, w], [w, 0.0]])
+
+
+def test_two_equivalent_interacting_sites_follow_the_electrostatic_relation():
+    # Bjerrum (1923): for two equivalent groups pK2 - pK1 = log10(4) + W (statistical factor + interaction)
+    for w in (0.0, 0.8, 2.5):
+        pk, kinds = Microstates([4.5, 4.5], ["acid", "acid"], _pair(w)).macro_constants()
+        assert pk[1] - pk[0] == pytest.approx(np.log10(4) + w, abs=1e-9) and list(kinds) == ["acid", "acid"]
+        pk, kinds = Microstates([9.5, 9.5], ["base", "base"], _pair(w)).macro_constants()
+        assert pk[1] - pk[0] == pytest.approx(np.log10(4) + w, abs=1e-9) and list(kinds) == ["base", "base"]
+
+
+def test_opposite_charges_attract_and_steps_are_attributed_to_their_groups():
+    # amino acid with an attraction W between COO- and NH3+: pK1 ~ acid site - W, pK2 ~ base site + W
+    ms = Microstates([3.5, 8.5], ["acid", "base"], _pair(1.5))
+    pk, kinds = ms.macro_constants()
+    assert pk == pytest.approx([2.0, 10.0], abs=0.01) and list(kinds) == ["acid", "base"]
+    assert ms.constant_of_kind("acid") == pytest.approx(2.0, abs=0.01)
+    assert ms.constant_of_kind("base") == pytest.approx(10.0, abs=0.01)
+    assert ms.mean_charge(6.0) == pytest.approx(0.0, abs=0.01) and ms.neutral_fraction(6.0) < 1e-3
+    assert list(ms.major_protonation(6.0)) == [False, True]  # the zwitterion
+
+
+def test_one_atom_never_gains_and_loses_a_proton_at_once():
+    ex = exclusive_pairs(["acid", "base"], np.array([[0, 0], [0, 0]]))
+    ms = Microstates([6.0, 8.0], ["acid", "base"], exclusive=ex)
+    assert ms.populations(7.0)[(ms.q[:, 0] == -1) & (ms.q[:, 1] == 1)].sum() == 0.0
+    # two sites one bond apart are not exclusive
+    assert not exclusive_pairs(["acid", "base"], np.array([[0, 1], [1, 0]])).any()
+
+
+def test_hydroxypyridine_charge_pair_stands_for_the_pyridone_tautomer():
+    # 2-hydroxypyridine: constants 0.75 and 11.65 (Albert & Phillips, J. Chem. Soc. 1956, from memory);
+    # mostly the neutral 2-pyridone at pH 7, which the charged O-/N-H+ pair of the site picture stands for
+    ms = Microstates([0.75, 11.65], ["acid", "base"])
+    assert ms.mean_charge(7.0) == pytest.approx(0.0, abs=0.01)
+
+
+def test_weak_site_types_are_held_beside_ordinary_sites_of_their_kind():
+    # serine-like: a carboxylic acid (prior 4.2) and an alcohol (prior 15.5, predicted too acidic at 8)
+    assert list(weak_sites(["acid", "acid", "base"], [4.2, 15.5, 9.8], [2.2, 8.0, 9.2])) == [False, True, False]
+    # a lone purine N-H predicted well inside the window stays free (adenine N9-H 9.8, CRC, from memory)
+    assert list(weak_sites(["acid", "base"], [14.2, 6.5], [9.9, 4.2])) == [False, False]
+    # a lone alcohol near the top of the window, or an amide O near the bottom, is held
+    assert list(weak_sites(["acid"], [15.5], [12.2])) == [True]
+    assert list(weak_sites(["base"], [-0.5], [1.5])) == [True]
+
+
+def test_many_sites_hold_the_farthest_ones_and_keep_their_charge():
+    pka = np.array([4.0, 4.5, 5.0, 5.5, 6.0, 6.5, 7.0, 7.5, 8.0, 8.5, 9.0, 9.5, -3.0, 17.0])
+    ms = Microstates(pka, np.full(14, "acid"))
+    assert sorted(ms.held) == [12, 13] and len(ms.free) == 12
+    # the strong acid held deprotonated still counts in the charge; the weak one held protonated does not
+    free_charge = Microstates(pka[:12], np.full(12, "acid")).mean_charge(7.0)
+    assert ms.mean_charge(7.0) == pytest.approx(free_charge - 1.0)
+
+
+def test_interaction_model_is_fitted_on_its_calibration_set():
+    from importlib import resources
+    rows = read_calibration(resources.files("pkasite.configs").joinpath("site_interactions.csv").read_text())
+    assert len(rows) >= 6 and all(r["source"] for r in rows)
+    model = default_interaction_model()
+    assert model.n_calibration == len(rows) and 1.0 < model.power < 4.0 and model.conjugated_factor > 1.0
+    # the fitted curve reproduces the non-conjugated calibration pairs within a factor of two
+    for r in rows:
+        w = abs(float(r["pk2"]) - float(r["pk1"])) - np.log10(float(r["statistical_factor"]))
+        fit = float(model.pair(float(r["distance"]), r["conjugated"] == "1"))
+        assert 0.5 < fit / w < 2.0, r["name"]
+    # the pair term falls with distance and never exceeds the largest calibration value
+    d = np.arange(1, 10)
+    w = model.pair(d, np.zeros(9, bool))
+    assert np.all(np.diff(w) <= 0) and w.max() <= model.cap + 1e-9
+    again = InteractionModel.from_dict(model.to_dict())
+    assert again == model
+
+
+def test_weak_sites_are_held_uncharged_whatever_their_prediction():
+    # citric acid (CRC, from memory: 3.13, 4.76, 6.40) with its tertiary alcohol predicted far too acidic:
+    # held, the alcohol must neither titrate nor push the carboxylic acids with a charge
+    pka = [3.4, 4.0, 4.0, 6.9]
+    kinds = ["acid"] * 4
+    hold = np.array([False, False, False, True])
+    ms = Microstates(pka, kinds, hold=hold)
+    free = Microstates(pka[:3], kinds[:3])
+    assert ms.macro_constants()[0] == pytest.approx(free.macro_constants()[0])
+    assert ms.mean_charge(7.4) == pytest.approx(free.mean_charge(7.4))

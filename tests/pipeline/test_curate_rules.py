@@ -10,14 +10,14 @@ from rdkit import Chem
 
 from pkasite.pipeline.config import CurationConfig
 from pkasite.pipeline.curate import Reject, curate, parse_temperature, parse_value
-from pkasite.pipeline.ingest import RAW_COLUMNS
+from pkasite.pipeline.ingest import RAW_COLUMNS, WHOLE_COMPOUND
 
 CFG = CurationConfig()
 
 
 def raw(*rows: dict) -> pd.DataFrame:
     base = {"source": "t", "file": "t.csv", "smiles_fallback": "", "is_pkb": False, "constant_index": None,
-            "group_key": None, "temperature_text": "25", "method": "", "site_atom": None, "licence": "L",
+            "constant_numbering": "", "group_key": None, "temperature_text": "25", "method": "", "site_atom": None, "licence": "L",
             "non_aqueous": "", "pressure": "", "assessment": "", "split": None, "in_house": False}
     out = []
     for i, r in enumerate(rows, start=1):
@@ -87,20 +87,66 @@ def test_pkb_converted_to_pkah():
     assert res.measurements.loc[0, "pka"] == pytest.approx(14.0 - 3.34)
 
 
-def test_first_constant_rule_uses_other_kind():
-    # compound A: constant 1 acid, constant 2 base -> the base value is the first base constant (kept)
-    # compound B: constant 2 acid with no lower constant of the other kind -> a later acid constant (rejected)
-    res = curate(raw({"smiles": "NCC(=O)O", "kind": "acid", "value_text": "2.3", "constant_index": 1, "group_key": "A"},
-                     {"smiles": "NCC(=O)O", "kind": "base", "value_text": "9.7", "constant_index": 2, "group_key": "A"},
-                     {"smiles": "OC(=O)CC(=O)O", "kind": "acid", "value_text": "5.7", "constant_index": 2, "group_key": "B"}),
-                 CFG)
-    assert reasons(res) == {"r3": "later_constant"}
-    with_site = curate(raw({"smiles": "OC(=O)CC(=O)O", "kind": "acid", "value_text": "5.7", "constant_index": 2,
-                            "site_atom": "0"}), CFG)
+def ranks_by_member(result) -> dict:
+    m = result.measurements
+    return {x: (None if pd.isna(r) else int(r)) for ms, r in zip(m["members"], m["constant_rank"]) for x in ms.split(";")}
+
+
+# Numbered as in a compilation that counts a compound's constants from the most acidic end over all
+# its constants, whatever their kind; the values are chosen to trigger the rule, not measurements.
+CONSTANT_ROWS = [
+    # A: acid constant 1 and base constant 2: each the strongest of its kind
+    {"smiles": "NCC(=O)O", "kind": "acid", "value_text": "2.3", "constant_index": 1, "group_key": "A"},
+    {"smiles": "NCC(=O)O", "kind": "base", "value_text": "9.7", "constant_index": 2, "group_key": "A"},
+    # B: a base numbered 2 whose constant 1 is not listed: still its strongest base constant
+    {"smiles": "CN1CCCC1c1cccnc1", "kind": "base", "value_text": "8.0", "constant_index": 2, "group_key": "B"},
+    # C: two acid constants, the weaker listed first
+    {"smiles": "OC(=O)CC(=O)O", "kind": "acid", "value_text": "5.7", "constant_index": 2, "group_key": "C"},
+    {"smiles": "OC(=O)CC(=O)O", "kind": "acid", "value_text": "2.8", "constant_index": 1, "group_key": "C"},
+]
+
+
+def test_later_constants_kept_with_their_rank_by_default():
+    rows = [{**r, "constant_numbering": WHOLE_COMPOUND} for r in CONSTANT_ROWS]
+    res = curate(raw(*rows), CFG)
+    assert not CFG.first_constant_only and res.rejects.empty
+    assert ranks_by_member(res) == {"t:r1": 1, "t:r2": 1, "t:r3": 1, "t:r4": 2, "t:r5": 1}
+    # the two constants of C are two measurements, not replicates in conflict
+    c = res.measurements[res.measurements["smiles"] == "O=C(O)CC(=O)O"].sort_values("constant_rank")
+    assert c["pka"].tolist() == [2.8, 5.7] and not c["conflict"].any()
+    # r3 and r4 are the rows the former numbering rule rejected; r3 is a rank-1 constant
+    s = res.summary
+    assert (s["rows_recovered"], s["first_constants_recovered"], s["later_constants_kept"]) == (2, 1, 1)
+    assert s["measurements_by_rank"] == {"1": 4, "2": 1}
+
+
+def test_first_constant_only_keeps_rank_one():
+    rows = [{**r, "constant_numbering": WHOLE_COMPOUND} for r in CONSTANT_ROWS]
+    res = curate(raw(*rows), CurationConfig(first_constant_only=True))
+    assert reasons(res) == {"r4": "later_constant"}
+    detail = res.rejects.loc[0, "detail"]
+    assert "rank 2" in detail and "2.8" in detail  # names its rank and the stronger value
+    assert set(ranks_by_member(res).values()) == {1}
+    s = res.summary
+    assert (s["rows_recovered"], s["first_constants_recovered"], s["later_constants_kept"]) == (1, 1, 0)
+    assert s["accounted"]
+    # a later constant that names its site is kept; a named site needs no rank
+    named = [{**r, "constant_numbering": WHOLE_COMPOUND} for r in CONSTANT_ROWS[3:]]
+    named[0]["site_atom"] = "0"
+    with_site = curate(raw(*named), CurationConfig(first_constant_only=True))
     assert with_site.rejects.empty
-    m = with_site.measurements.iloc[0]
+    assert ranks_by_member(with_site) == {"t:r1": None, "t:r2": 1}
+    m = with_site.measurements.dropna(subset=["site_atom"]).iloc[0]
     atom = Chem.MolFromSmiles(m["smiles"]).GetAtomWithIdx(int(m["site_atom"]))
     assert atom.GetSymbol() == "O" and atom.GetTotalNumHs() == 1  # the carried-through OH oxygen
+
+
+def test_rows_without_numbering_are_rank_one_replicates():
+    # an in-house style file: no constant numbers, so two values of one compound and kind are replicates
+    res = curate(raw({"smiles": "CC(=O)O", "kind": "acid", "value_text": "4.70", "group_key": "X"},
+                     {"smiles": "CC(=O)O", "kind": "acid", "value_text": "4.80", "group_key": "X"}), CFG)
+    assert len(res.measurements) == 1 and res.measurements.loc[0, "n"] == 2
+    assert res.measurements.loc[0, "constant_rank"] == 1
 
 
 def test_structure_standardized_salt_removed_and_unreadable_rejected():

@@ -13,10 +13,14 @@ def test_funnel_counts(curated):
     # Observed on the four dwpka files (2445 + 815 + 2760 + 920 rows), default config.
     assert s["rows_in"] == 6940
     assert s["rows_in_by_kind"] == {"acid": 3260, "base": 3680}
-    assert s["rejected_by_reason"] == {"later_constant": 467, "temperature_out_of_window": 207,
-                                       "pka_outside_window": 50, "temperature_unclear": 2,
-                                       "conflicting_replicates": 2}
-    assert s["measurements"] == 6212 and s["measurements_by_kind"] == {"acid": 3013, "base": 3199}
+    assert s["rejected_by_reason"] == {"temperature_out_of_window": 207, "pka_outside_window": 50,
+                                       "temperature_unclear": 2, "conflicting_replicates": 2}
+    assert s["measurements"] == 6679 and s["measurements_by_kind"] == {"acid": 3149, "base": 3530}
+    # constants ranked by value within each compound: the 467 rows the former numbering rule rejected
+    # as later constants are kept, 436 of them as their compound's strongest constant of the kind; 29
+    # acid rows whose numbering implies unlisted stronger acids (no base site) rank 2 or more
+    assert s["measurements_by_rank"] == {"1": 6648, "2": 25, "3": 5, "4": 1}
+    assert (s["rows_recovered"], s["first_constants_recovered"], s["later_constants_kept"]) == (467, 436, 31)
     assert s["accounted"]
 
 
@@ -32,8 +36,8 @@ def test_every_input_row_is_a_member_or_a_reject(curated, mirror):
 
 def test_written_tables_follow_the_contract(curated):
     m = pd.read_parquet(curated.measurements)
-    assert list(m.columns[:12]) == ["record_id", "smiles", "inchikey", "kind", "pka", "n", "spread",
-                                    "temperature_c", "method", "source", "licence", "site_atom"]
+    assert list(m.columns[:13]) == ["record_id", "smiles", "inchikey", "kind", "pka", "n", "spread",
+                                    "temperature_c", "method", "source", "licence", "site_atom", "constant_rank"]
     assert set(m["licence"]) == {"CC-BY-4.0"} and m["pka"].between(-2, 16).all()
     r = pd.read_parquet(curated.rejects)
     assert {"source", "record_id", "reason"} <= set(r.columns) and r["reason"].notna().all()

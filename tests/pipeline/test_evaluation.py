@@ -60,7 +60,7 @@ def test_value_free_reduction_reads_no_value_and_no_attached_site(fitted, heldou
     pred, sim = T.heldout_site_predictions(reg, test, bits)
     reference = E.constants_by_mol(test.table, pred)
     blind = test.table.sites.drop(columns=["label", "labeled", "confidence"])
-    got = E.molecule_constants(blind, pred, E.given_atoms(test.table))
+    got = E.molecule_constants(blind, pred, E.given_atoms(test.table), test.table.interactions())
     assert np.array_equal(got["pred"].to_numpy(), reference[got.index.to_numpy()])
     # the site predictions themselves do not change when every value and attachment is scrambled
     test.table.sites["label"] = np.nan
@@ -80,9 +80,14 @@ def test_cv_predictions_of_a_fold_do_not_depend_on_its_values(subset):
     assert np.array_equal(before[rows], after[rows]) and not np.isnan(before[rows]).any()
 
 
-def test_molecule_constant_is_the_strongest_site_or_the_given_one():
-    sites = pd.DataFrame({"mol_id": [0, 0, 1, 1, 2, 2], "kind": ["acid", "acid", "base", "base", "acid", "acid"],
-                          "atom": [1, 4, 0, 3, 2, 5]})
-    pred = np.array([4.2, 9.9, 10.5, 5.2, 4.0, 9.0])
-    got = E.molecule_constants(sites, pred, np.array([np.nan, np.nan, 5.0]))
-    assert got["pred"].tolist() == [4.2, 10.5, 9.0] and got["row"].tolist() == [0, 2, 5]
+def test_molecule_constant_comes_from_the_microstates_or_the_given_site():
+    """Two equivalent independent acid sites: the first macro constant is log10(2) below either site
+    (statistical factor; Albert & Serjeant, "The Determination of Ionization Constants", from memory).
+    Far-apart sites keep their values; a given site atom gives that site's prediction."""
+    sites = pd.DataFrame({"mol_id": [0, 0, 1, 1, 2, 2, 3, 3], "kind": ["acid", "acid", "base", "base", "acid", "acid",
+                                                                       "acid", "acid"],
+                          "atom": [1, 4, 0, 3, 2, 5, 0, 6]})
+    pred = np.array([4.2, 9.9, 10.5, 5.2, 4.0, 9.0, 4.5, 4.5])
+    got = E.molecule_constants(sites, pred, np.array([np.nan, np.nan, 5.0, np.nan]))
+    assert got["pred"].to_numpy() == pytest.approx([4.2, 10.5, 9.0, 4.5 - np.log10(2)], abs=1e-3)
+    assert got["row"].tolist() == [0, 2, 5, 6]

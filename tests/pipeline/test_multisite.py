@@ -1,0 +1,91 @@
+"""Molecules with several sites through the whole prediction path (shipped model, microstate model).
+
+Measured values from memory: CRC Handbook of Chemistry and Physics, 97th ed. (acetic acid, glycine,
+ethylenediamine, piperazine, citric acid, 4-aminopyridine, histamine), A. Albert and J. N. Phillips,
+J. Chem. Soc. 1956, 1294 (2-hydroxypyridine).  Tolerances reflect the model's error (about 1 log unit
+RMSE on held-out molecules), the structural checks (how many constants, which charge) are tight.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from pkasite.pipeline.bundle import load_bundle
+from pkasite.pipeline.predict import default_model_path, predict_records
+
+MOLECULES = {
+    "acetic acid": "CC(=O)O",
+    "glycine": "NCC(=O)O",
+    "ethylenediamine": "NCCN",
+    "piperazine": "C1CNCCN1",
+    "citric acid": "OC(=O)CC(O)(CC(=O)O)C(=O)O",
+    "4-aminopyridine": "Nc1ccncc1",
+    "2-hydroxypyridine": "Oc1ccccn1",
+    "histamine": "NCCc1cnc[nH]1",
+}
+
+
+@pytest.fixture(scope="module")
+def predicted():
+    mols, sites = predict_records(load_bundle(default_model_path()), list(MOLECULES), list(MOLECULES.values()),
+                                  ph=7.4)
+    return mols.set_index("id"), sites
+
+
+def _macro(row, low=2.0, high=12.0):
+    return [float(x) for x in row["macro_pkas"].split(";") if x and low <= float(x) <= high]
+
+
+def test_acetic_acid(predicted):
+    m = predicted[0].loc["acetic acid"]
+    assert m["acid_pka"] == pytest.approx(4.76, abs=0.5) and _macro(m) == [m["acid_pka"]]
+    assert m["charge_at_ph"] == pytest.approx(-1.0, abs=0.01)
+
+
+def test_glycine_is_a_zwitterion(predicted):
+    m = predicted[0].loc["glycine"]
+    assert _macro(m) == pytest.approx([2.34, 9.60], abs=0.7)
+    assert abs(m["charge_at_ph"]) < 0.1 and m["fraction_neutral"] < 0.01
+    assert m["major_species"] == "[NH3+]CC(=O)[O-]"
+    assert m["isoelectric_ph"] == pytest.approx(0.5 * (2.34 + 9.60), abs=0.7)
+
+
+@pytest.mark.parametrize("name, first, second", [("ethylenediamine", 9.93, 6.85), ("piperazine", 9.73, 5.33)])
+def test_diamines_show_two_coupled_constants(predicted, name, first, second):
+    m = predicted[0].loc[name]
+    got = sorted(_macro(m), reverse=True)
+    assert len(got) == 2 and got[0] == pytest.approx(first, abs=0.8) and got[1] == pytest.approx(second, abs=1.5)
+    # two equivalent amines: the second protonation is weaker by more than the statistical log10(4)
+    assert got[0] - got[1] > np.log10(4) + 1.0
+    # mostly the monocation at pH 7.4 (common practice: ionization from Henderson-Hasselbalch)
+    assert 1.0 < m["charge_at_ph"] < 1.5
+
+
+def test_citric_acid_three_constants(predicted):
+    m = predicted[0].loc["citric acid"]
+    assert _macro(m) == pytest.approx([3.13, 4.76, 6.40], abs=0.7)
+    assert m["charge_at_ph"] < -2.5
+    # the tertiary alcohol does not pose as a fourth constant
+    assert len([x for x in m["macro_pkas_all"].split(";") if x]) == 3
+
+
+def test_4_aminopyridine_has_one_constant_at_the_ring_nitrogen(predicted):
+    m = predicted[0].loc["4-aminopyridine"]
+    assert _macro(m) == pytest.approx([9.17], abs=0.8)
+    sites = predicted[1][predicted[1]["id"] == "4-aminopyridine"]
+    assert sites["site_type"].tolist() == ["pyridine_like_n"]
+
+
+def test_2_hydroxypyridine_is_neutral_between_its_constants(predicted):
+    m = predicted[0].loc["2-hydroxypyridine"]
+    assert _macro(m, 2.0, 10.0) == []
+    assert abs(m["charge_at_ph"]) < 0.05
+
+
+def test_histamine_two_base_constants(predicted):
+    # Known miss, not asserted: the imidazole N-H (about 14.4) is predicted near 11 and listed as a third
+    # constant; only the two base constants are checked here.
+    m = predicted[0].loc["histamine"]
+    bases = sorted([x for x in _macro(m) if x < 10.5], reverse=True)
+    assert bases[:2] == pytest.approx([9.75, 6.04], abs=0.8)
+    assert 1.0 < m["charge_at_ph"] < 1.3
