@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import functools
 import sys
+import time
 from pathlib import Path
 
 import click
@@ -185,10 +186,36 @@ def _resolve_model(model: str | None, tracking_uri: str) -> Path:
     return Path(model)
 
 
+def _separator(value: str | None) -> str | None:
+    if value is None:
+        return None
+    value = {"tab": "\t", "\\t": "\t"}.get(value.lower(), value)
+    if len(value) != 1:
+        raise click.BadParameter(f"{value!r} is not one character (e.g. ',', ';' or tab)", param_hint="--sep")
+    return value
+
+
+def _encoding(value: str) -> str:
+    import codecs
+    try:
+        codecs.lookup(value)
+    except LookupError:
+        raise click.BadParameter(f"{value!r} is not a known text encoding (e.g. utf-8, latin-1, cp1252)",
+                                 param_hint="--encoding") from None
+    return value
+
+
+def _stop_on_sigterm() -> None:
+    """SIGTERM ends the command like Ctrl-C does: workers stopped, nothing half-written left behind."""
+    import signal
+    signal.signal(signal.SIGTERM, lambda *_: sys.exit(128 + signal.SIGTERM))
+
+
 @main.command("predict")
 @click.argument("input_path", metavar="INPUT", type=click.Path(dir_okay=False))
-@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
-              help="Per-molecule table; format from the extension (.csv, .tsv, .parquet).")
+@click.option("-o", "--output", required=True, type=click.Path(),
+              help="Per-molecule table; format from the extension (.csv, .tsv, .parquet); with --engine spark "
+                   "a parquet dataset folder.")
 @click.option("--sites", "sites_out", type=click.Path(dir_okay=False), help="Also write the per-site table here.")
 @click.option("--ph", type=float, default=7.4, show_default=True, help="pH for charge state and major species.")
 @click.option("--model", help="Bundle folder or MLflow URI (models:/NAME@ALIAS, runs:/ID/model); default: the shipped model.")
@@ -196,20 +223,32 @@ def _resolve_model(model: str | None, tracking_uri: str) -> Path:
 @click.option("--chunk-size", type=click.IntRange(1, 1_000_000), default=1000, show_default=True)
 @click.option("--smiles-col", help="SMILES column name (default: auto-detected).")
 @click.option("--id-col", help="Id column name (default: auto-detected, else row numbers).")
+@click.option("--sep", help="Column delimiter of a CSV/TSV input, e.g. ';' or tab (default: read from the header line).")
+@click.option("--encoding", default="utf-8", show_default=True,
+              help="Text encoding of CSV, TSV, .smi and SDF inputs (e.g. latin-1, cp1252).")
+@click.option("--timeout", "mol_timeout", type=click.FloatRange(1, None), default=60, show_default=True,
+              help="Seconds one molecule may take; a longer one gets status timeout.")
 @click.option("--explain", is_flag=True, help="Add the top feature contributions, in chemistry words, to the per-site table.")
 @click.option("--window", default="0,14", show_default=True, metavar="LOW,HIGH",
               help="pH range of the macroscopic constants listed in macro_pkas (macro_pkas_all keeps every one).")
-@click.option("--quiet", is_flag=True, help="No progress line.")
+@click.option("--quiet", is_flag=True, help="No progress bar.")
+@click.option("--engine", type=click.Choice(["local", "spark"]), default="local", show_default=True,
+              help="local: worker processes on this machine; spark: a pandas UDF on a Spark cluster "
+                   "(needs pkasite[spark] and Java 17; CSV/TSV or parquet in, parquet datasets out).")
+@click.option("--master", help="Spark master with --engine spark: local[N], spark://HOST:PORT, yarn "
+                               "(default: spark-submit's, else local[*]).")
+@click.option("--partitions", type=click.IntRange(1), help="With --engine spark: repartition the input into N parts.")
 @config_option
 @_fail_cleanly
-def predict_cmd(input_path, output, sites_out, ph, model, jobs, chunk_size, smiles_col, id_col, explain, window, quiet,
-                config):
+def predict_cmd(input_path, output, sites_out, ph, model, jobs, chunk_size, smiles_col, id_col, sep, encoding,
+                mol_timeout, explain, window, quiet, engine, master, partitions, config):
     """Predict site pKa, macro pKa, charge at pH, intervals and domain warnings for a file of molecules.
 
     INPUT is CSV/TSV (SMILES column auto-detected), .smi, .sdf or .parquet. Every input row gives
     one output row, in input order, with a status; predictions are estimates, not measurements.
     """
     from .batch import run_batch
+    from .isolation import WorkerStartError
     if explain and not sites_out:
         raise click.UsageError("--explain adds a column to the per-site table: give --sites too")
     try:
@@ -218,11 +257,32 @@ def predict_cmd(input_path, output, sites_out, ph, model, jobs, chunk_size, smil
             raise ValueError
     except ValueError:
         raise click.BadParameter(f"{window!r} is not LOW,HIGH with LOW < HIGH (e.g. 2,12)", param_hint="--window")
+    sep, encoding = _separator(sep), _encoding(encoding)
     cfg = load_config(config)
     bundle = _resolve_model(model, cfg.mlflow.tracking_uri)
-    result = run_batch(Path(input_path), Path(output), bundle, Path(sites_out) if sites_out else None, ph=ph,
-                       jobs=jobs, chunk_size=chunk_size, smiles_col=smiles_col, id_col=id_col,
-                       progress=not quiet, explain=explain, window=(low, high))
+    if engine == "spark":
+        if explain or sep or encoding.lower().replace("_", "-") not in ("utf-8", "utf8"):
+            raise click.UsageError("--explain, --sep and --encoding are options of the local engine")
+        from .spark import predict_spark
+        t0 = time.monotonic()
+        result = predict_spark(input_path, output, bundle, sites_out,
+                               ph=ph, window=(low, high), master=master, smiles_col=smiles_col, id_col=id_col,
+                               partitions=partitions)
+        statuses = ", ".join(f"{k} {v}" for k, v in sorted(result["status_counts"].items()))
+        _log(f"{result['rows']} rows in {time.monotonic() - t0:.1f} s on Spark ({statuses})")
+        click.echo(f"molecules: {output}" + (f"\nsites:     {sites_out}" if sites_out else ""))
+        return
+    if master or partitions:
+        raise click.UsageError("--master and --partitions go with --engine spark")
+    _stop_on_sigterm()
+    try:
+        result = run_batch(Path(input_path), Path(output), bundle, Path(sites_out) if sites_out else None, ph=ph,
+                           jobs=jobs, chunk_size=chunk_size, smiles_col=smiles_col, id_col=id_col,
+                           progress=not quiet, explain=explain, window=(low, high), encoding=encoding, sep=sep,
+                           mol_timeout=mol_timeout)
+    except WorkerStartError as exc:
+        click.echo(f"pkasite: error: {exc}", err=True)
+        sys.exit(1)
     statuses = ", ".join(f"{k} {v}" for k, v in sorted(result.status_counts.items()))
     _log(f"{result.rows} rows in {result.seconds:.1f} s ({statuses})"
          + (f"; resumed {result.resumed_chunks} finished chunk(s)" if result.resumed_chunks else ""))
@@ -234,19 +294,21 @@ def predict_cmd(input_path, output, sites_out, ph, model, jobs, chunk_size, smil
 @click.option("--host", default="127.0.0.1", show_default=True, help="Interface to bind; loopback unless you mean to share it.")
 @click.option("--port", type=click.IntRange(1, 65535), default=5077, show_default=True)
 @click.option("--max-bytes", type=click.IntRange(1), default=5 * 1024 * 1024, show_default=True,
-              help="Largest request body accepted (413 above it).")
+              help="Largest request body accepted (413 above it, chunked bodies included).")
+@click.option("--workers", type=click.IntRange(1, 64), default=1, show_default=True,
+              help="Worker processes that score requests.")
+@click.option("--timeout", type=click.FloatRange(1, None), default=60, show_default=True,
+              help="Seconds a request may take; rows not scored by then get status timeout.")
 @config_option
 @_fail_cleanly
-def serve_cmd(model, host, port, max_bytes, config):
+def serve_cmd(model, host, port, max_bytes, workers, timeout, config):
     """Serve the model over HTTP (MLflow scoring protocol: POST /invocations, GET /ping)."""
-    from .serve import pyfunc_dir_for_bundle, serve
+    from .serve import serve
     cfg = load_config(config)
-    if model is None or ":/" not in model:
-        uri = str(pyfunc_dir_for_bundle(_resolve_model(model, cfg.mlflow.tracking_uri)))
-    else:
-        uri = model
+    target = model if model is not None and ":/" in model else _resolve_model(model, cfg.mlflow.tracking_uri)
     _log(f"serving {model or 'the shipped model'} on http://{host}:{port} (POST /invocations)")
-    serve(uri, host, port, max_bytes)
+    _stop_on_sigterm()
+    serve(target, host, port, max_bytes, workers, timeout)
 
 
 @main.command("compare")

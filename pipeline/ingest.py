@@ -30,6 +30,14 @@ class InputFileError(ValueError):
     """A whole input file that cannot be read; the message names the file and the fix."""
 
 
+def sniff_delimiter(header: str, default: str = ",") -> str:
+    """The delimiter of a table from its header line: comma, semicolon or tab (``default`` if none fits)."""
+    try:
+        return csv.Sniffer().sniff(header, delimiters=",;\t").delimiter
+    except csv.Error:
+        return default
+
+
 def _read_csv(path: Path) -> pd.DataFrame:
     path = Path(path)
     if not path.is_file():
@@ -46,10 +54,7 @@ def _read_csv(path: Path) -> pd.DataFrame:
         comments += 1
     if comments == len(lines):
         raise InputFileError(f"{path}: the file has no header row")
-    try:
-        delimiter = csv.Sniffer().sniff(lines[comments], delimiters=",;\t").delimiter
-    except csv.Error:
-        delimiter = ","
+    delimiter = sniff_delimiter(lines[comments])
     try:
         return pd.read_csv(path, dtype=str, keep_default_na=False, sep=delimiter, encoding="utf-8-sig",
                            skiprows=comments)

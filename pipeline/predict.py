@@ -3,9 +3,15 @@
 Every input row gives exactly one molecule row, in input order; a row that
 cannot be predicted carries a ``status`` other than ``ok`` and a message in
 ``warnings``.  Nothing here raises for a bad molecule.
+
+Every input passes cheap size checks before any expensive RDKit call (see
+:func:`prepare_input`): RDKit's canonical SMILES writer recurses along chains and
+overflows the stack on chains of about 20,000 atoms, so nothing larger than the limits
+below ever reaches standardization, features or fingerprints.
 """
 from __future__ import annotations
 
+import hashlib
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -30,9 +36,19 @@ MOLECULE_COLUMNS = ["id", "smiles", "status", "acid_pka", "acid_pka_low", "acid_
 WINDOW = (0.0, 14.0)
 SITE_COLUMNS = ["id", "atom", "site_type", "kind", "pka", "pka_low", "pka_high", "similarity", "in_domain",
                 "warnings"]
+# Size limits, checked before standardization (see prepare_input).  300 heavy atoms is several times the
+# largest training molecule; 10,000 characters is about 16 per heavy atom at that limit (the open data
+# use at most about 5), far below the ~20,000-atom chains that overflow RDKit's SMILES writer.
 MAX_HEAVY_ATOMS = 300
+MAX_RINGS = 100               # ring count (cycle rank: bonds - atoms + fragments) of the whole input
+MAX_SMILES_CHARS = 10_000
+MAX_RECORD_CHARS = 500_000    # one SDF record's connection table
+ECHO_CHARS = 200              # longer rejected inputs are echoed cut to this (spreadsheet cells hold 32,767)
 ORGANIC = {"H", "B", "C", "N", "O", "F", "Si", "P", "S", "Cl", "Se", "Br", "I"}
 INTERVAL_LEVEL = 0.9
+# every value of ``status``; all but ok come with a message in ``warnings``
+STATUSES = ("ok", "empty", "unreadable_smiles", "unreadable_record", "unreadable_row", "radical", "unsupported_element",
+            "too_large", "invalid_structure", "crashed", "timeout")
 
 
 def default_model_path():
@@ -52,18 +68,94 @@ class PreparedInput:
     warnings: list[str] = field(default_factory=list)
     mol: Chem.Mol | None = None
     original_atoms: tuple[int, ...] = ()
+    smiles: str | None = None  # what the output's smiles column shows (None: the input as given)
 
 
-def prepare_input(smiles) -> PreparedInput:
-    """Read and standardize one input structure; problems become a status or a warning."""
+def echo_text(text) -> str:
+    """The input as shown in the output: as given, or cut to ECHO_CHARS when longer than any accepted input."""
+    text = "" if _missing(text) else str(text)
+    if len(text) > MAX_SMILES_CHARS:
+        return f"{text[:ECHO_CHARS]}... ({len(text)} characters)"
+    return text
+
+
+def _missing(value) -> bool:
+    return value is None or (isinstance(value, float) and np.isnan(value))
+
+
+def text_problem(text, fmt: str = "smiles") -> tuple[str, str] | None:
+    """The status and message of an input that fails before parsing (empty or too long), else None.
+
+    ``fmt`` is ``"smiles"`` or ``"molblock"`` (one SDF record).  Cheap: the batch reader calls it on
+    every row as it reads, so an over-long string never travels further."""
+    what = "SMILES" if fmt == "smiles" else "SDF record"
+    if _missing(text) or not str(text).strip():
+        return ("empty", "no SMILES in this row") if fmt == "smiles" else ("unreadable_record", "the SDF record is empty")
+    limit = MAX_SMILES_CHARS if fmt == "smiles" else MAX_RECORD_CHARS
+    if len(str(text)) > limit:
+        return "too_large", f"{what} of {len(str(text))} characters (limit {limit})"
+    return None
+
+
+def _parse(text: str, fmt: str, sanitize: bool) -> Chem.Mol | None:
+    try:
+        if fmt == "smiles":
+            return Chem.MolFromSmiles(text, sanitize=sanitize)
+        return Chem.MolFromMolBlock(text, sanitize=sanitize, removeHs=sanitize)
+    except Exception:  # RDKit raises for a few malformed inputs instead of returning None
+        return None
+
+
+def size_problem(mol: Chem.Mol) -> str | None:
+    """Why an unsanitized molecule is too large to standardize, else None (graph counts only, no perception)."""
+    atomic = [a.GetAtomicNum() for a in mol.GetAtoms()]
+    frags = Chem.GetMolFrags(mol, sanitizeFrags=False)
+    heavy = max((sum(atomic[i] > 1 for i in frag) for frag in frags), default=0)
+    if heavy > MAX_HEAVY_ATOMS:
+        return f"{heavy} heavy atoms (limit {MAX_HEAVY_ATOMS})"
+    rings = mol.GetNumBonds() - mol.GetNumAtoms() + len(frags)
+    if rings > MAX_RINGS:
+        return f"{rings} rings (limit {MAX_RINGS})"
+    return None
+
+
+def _unreadable(text: str, fmt: str, raw: Chem.Mol | None) -> PreparedInput:
+    reason = "broken atom or bond block" if fmt == "molblock" else ""
+    if raw is not None:  # it parses as a graph: sanitization says what is wrong
+        try:
+            Chem.SanitizeMol(raw)
+        except Exception as exc:  # noqa: BLE001 - RDKit's sanitization errors have several types
+            reason = str(exc).strip().splitlines()[0][:200] if str(exc).strip() else reason
+    if fmt == "molblock":
+        return PreparedInput("unreadable_record", [f"the SDF record cannot be read: {reason}"], smiles="")
+    return PreparedInput("unreadable_smiles",
+                         [f"RDKit cannot read SMILES {text[:80]!r}" + (f": {reason}" if reason else "")])
+
+
+def prepare_input(smiles, fmt: str = "smiles") -> PreparedInput:
+    """Read and standardize one input structure; problems become a status or a warning.
+
+    ``fmt``: ``"smiles"``, or ``"molblock"`` for one SDF record, which is read, written as SMILES (shown
+    in the output; site atoms index it) and prepared as that SMILES.  Guard order, cheapest first:
+    empty or over-long text; the unsanitized graph's largest fragment (heavy atoms) and ring count;
+    only then RDKit's full parse, standardization and everything after."""
     quiet_rdkit()
-    out = PreparedInput()
-    text = "" if smiles is None or (isinstance(smiles, float) and np.isnan(smiles)) else str(smiles).strip()
-    if not text:
-        return PreparedInput("empty", ["no SMILES in this row"])
-    mol = Chem.MolFromSmiles(text)
+    problem = text_problem(smiles, fmt)
+    if problem:
+        return PreparedInput(problem[0], [problem[1]], smiles=echo_text(smiles) if fmt == "smiles" else "")
+    text = str(smiles).strip() if fmt == "smiles" else str(smiles)
+    raw = _parse(text, fmt, sanitize=False)
+    if raw is not None and (too_big := size_problem(raw)):
+        return PreparedInput("too_large", [too_big], smiles=None if fmt == "smiles" else "")
+    mol = _parse(text, fmt, sanitize=True) if raw is not None else None
     if mol is None:
-        return PreparedInput("unreadable_smiles", [f"RDKit cannot read SMILES {text[:80]!r}"])
+        return _unreadable(text, fmt, raw)
+    if fmt == "molblock":
+        written = Chem.MolToSmiles(mol)
+        out = prepare_input(written)
+        out.smiles = written
+        return out
+    out = PreparedInput()
     if any(a.GetNumRadicalElectrons() for a in mol.GetAtoms()):
         return PreparedInput("radical", ["radicals are outside what the model covers"])
     if len(Chem.GetMolFrags(mol)) > 1:
@@ -81,10 +173,46 @@ def prepare_input(smiles) -> PreparedInput:
     elements = {a.GetSymbol() for a in std.mol.GetAtoms()} - ORGANIC
     if elements:
         return PreparedInput("unsupported_element", [f"element(s) {', '.join(sorted(elements))} not supported"])
-    if std.mol.GetNumHeavyAtoms() > MAX_HEAVY_ATOMS:
-        return PreparedInput("too_large", [f"{std.mol.GetNumHeavyAtoms()} heavy atoms (limit {MAX_HEAVY_ATOMS})"])
     out.mol, out.original_atoms = std.mol, std.original_atoms
     return out
+
+
+class SeenIds:
+    """The first row of every id seen so far, to warn about duplicates across a whole run.
+
+    Keys are 8-byte digests of the ids, so memory grows by about 100 bytes per distinct id whatever
+    the id's length (about 100 MB per million distinct ids)."""
+
+    def __init__(self):
+        self._first: dict[int, int] = {}
+
+    def first_row(self, rid, row: int) -> int | None:
+        """The row that first had ``rid`` (1-based), or None when ``row`` is its first."""
+        key = int.from_bytes(hashlib.blake2b(str(rid).encode("utf-8", "surrogatepass"), digest_size=8).digest(),
+                             "little")
+        first = self._first.setdefault(key, row)
+        return None if first == row else first
+
+    def first_rows(self, ids, start: int = 1) -> list[int | None]:
+        return [self.first_row(rid, start + i) for i, rid in enumerate(ids)]
+
+
+def fill_id(value, row: int) -> str:
+    """The id of input row ``row``: the given one, or ``row<N>`` when it is missing or blank."""
+    if _missing(value) or value is pd.NA or not str(value).strip():
+        return f"row{row}"
+    return str(value)
+
+
+def status_row(rid, smiles, status: str, warnings: list[str]) -> dict:
+    """A per-molecule row without predictions: its id, input, status and the messages."""
+    row = {c: None for c in MOLECULE_COLUMNS}
+    row.update(id=rid, smiles=smiles, status=status, warnings="; ".join(warnings))
+    return row
+
+
+def duplicate_warning(first_row: int | None) -> list[str]:
+    return [] if first_row is None else [f"duplicate id (also row {first_row})"]
 
 
 def _major_species(mol: Chem.Mol, atoms, kinds, protonated) -> str:
@@ -134,7 +262,8 @@ def _site_warnings(bundle: ModelBundle, site_type: str, kind: str, similarity: f
 
 
 def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4, level: float = INTERVAL_LEVEL,
-                    explain: bool = False, window: tuple[float, float] = WINDOW) -> tuple[pd.DataFrame, pd.DataFrame]:
+                    explain: bool = False, window: tuple[float, float] = WINDOW, *, fmt: str = "smiles",
+                    problems=None, duplicate_of=None) -> tuple[pd.DataFrame, pd.DataFrame]:
     """Per-molecule and per-site predictions for parallel lists of ids and SMILES.
 
     Site values are microscopic constants of the neutral molecule; every molecule-level value
@@ -143,9 +272,16 @@ def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4, level: fl
 
     With ``explain`` the per-site table gets an ``explanation`` column: the largest feature
     contributions of each site in chemistry words (see :mod:`pkasite.pipeline.explain`).
+
+    ``fmt="molblock"``: the inputs are SDF records (the output shows their SMILES).  ``problems``: per
+    row, None or a ``(status, message)`` already decided by the caller (the row is not parsed).
+    ``duplicate_of``: per row, the row number that first had its id, or None (default: duplicates
+    within this call, rows numbered from 1).
     """
     ids, smiles = list(ids), list(smiles)
-    prepared = [prepare_input(s) for s in smiles]
+    problems = problems if problems is not None else [None] * len(smiles)
+    prepared = [PreparedInput(p[0], [p[1]]) if p else prepare_input(s, fmt) for s, p in zip(smiles, problems)]
+    duplicate_of = duplicate_of if duplicate_of is not None else SeenIds().first_rows(ids)
     catalog = load_catalog()
     interactions = bundle.interactions or default_interaction_model()
     items, owners, priors = [], [], []
@@ -179,18 +315,11 @@ def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4, level: fl
     else:
         kinds, pka, sim, half, mol_half = (np.array([]),) * 5
     owners = np.array(owners, dtype=int)
-    seen_ids: dict = {}
     mol_rows, site_rows = [], []
     for i, (rid, smi, p) in enumerate(zip(ids, smiles, prepared)):
-        row = {c: None for c in MOLECULE_COLUMNS}
-        warns = list(p.warnings)
-        if rid in seen_ids:
-            warns.append(f"duplicate id (also row {seen_ids[rid] + 1})")
-        else:
-            seen_ids[rid] = i
-        row.update(id=rid, smiles=smi, status=p.status)
+        warns = list(p.warnings) + duplicate_warning(duplicate_of[i])
+        row = status_row(rid, p.smiles if p.smiles is not None else smi, p.status, warns)
         if p.mol is None:
-            row["warnings"] = "; ".join(warns)
             mol_rows.append(row)
             continue
         idx = np.flatnonzero(owners == i)

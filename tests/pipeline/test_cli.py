@@ -27,6 +27,18 @@ def test_bad_usage_exits_2():
     assert CliRunner().invoke(main, ["no-such-command"]).exit_code == 2
 
 
+def test_engine_options_belong_to_their_engine(tmp_path):
+    src = tmp_path / "in.csv"
+    src.write_text("smiles\nCCO\n")
+    out = str(tmp_path / "o.csv")
+    res = CliRunner().invoke(main, ["predict", str(src), "-o", out, "--master", "local[2]"])
+    assert res.exit_code == 2 and "--engine spark" in res.output
+    res = CliRunner().invoke(main, ["predict", str(src), "-o", out, "--engine", "spark", "--sep", ";"])
+    assert res.exit_code == 2 and "local engine" in res.output
+    res = CliRunner().invoke(main, ["predict", str(src), "-o", out, "--sep", ";;"])
+    assert res.exit_code == 2 and "not one character" in res.output
+
+
 def test_missing_mirror_file_is_one_line_exit_1(tmp_path):
     res = subprocess.run([sys.executable, "-m", "pkasite.pipeline.cli", "pull", "--mirror", str(tmp_path),
                           "--cache", str(tmp_path / "c")], capture_output=True, text=True)

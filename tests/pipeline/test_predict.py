@@ -144,20 +144,23 @@ def test_interrupted_run_resumes_from_finished_chunks(tmp_path, monkeypatch):
     clean = tmp_path / "clean.csv"
     run_batch(path, clean, default_model_path(), chunk_size=3, progress=False)
     out = tmp_path / "out.csv"
-    real = batch._run_chunk
+    real = batch._write_part
 
-    def failing(args):
-        if args[0] == 2:
+    def interrupted(df, target):  # Ctrl-C while the third chunk is being written
+        if target.name == "mol_000002.parquet":
             raise KeyboardInterrupt
-        return real(args)
-    monkeypatch.setattr(batch, "_run_chunk", failing)
+        return real(df, target)
+    monkeypatch.setattr(batch, "_write_part", interrupted)
     with pytest.raises(KeyboardInterrupt):
         run_batch(path, out, default_model_path(), chunk_size=3, progress=False)
-    assert not out.exists() and len(list((tmp_path / "out.csv.parts").glob("mol_*.parquet"))) == 2
-    monkeypatch.setattr(batch, "_run_chunk", real)
+    finished = {p.name for p in (tmp_path / "out.csv.parts").glob("mol_*.parquet")}
+    assert not out.exists() and {"mol_000000.parquet", "mol_000001.parquet"} <= finished
+    assert "mol_000002.parquet" not in finished
+    monkeypatch.setattr(batch, "_write_part", real)
     res = run_batch(path, out, default_model_path(), chunk_size=3, progress=False)
-    assert res.resumed_chunks == 2 and res.rows == 12
+    assert res.resumed_chunks == len(finished) and res.rows == 12
     pd.testing.assert_frame_equal(pd.read_csv(out), pd.read_csv(clean))
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["clean.csv", "in.csv", "out.csv"]  # nothing left behind
 
 
 @pytest.mark.slow
