@@ -19,11 +19,21 @@ import os
 import threading
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import asdict, dataclass, field
+from typing import TYPE_CHECKING
 
-import lightgbm as lgb
 import numpy as np
 
+if TYPE_CHECKING:
+    import lightgbm as lgb
+
 KINDS = ("acid", "base")
+
+
+def _lgb():
+    """LightGBM, imported when first used: it pulls in scikit-learn and SciPy (over 2 s and ~90 MB), which
+    commands that never fit or load a booster (--help, pull, curate, reading a batch) should not pay."""
+    import lightgbm
+    return lightgbm
 
 
 def available_cores() -> int:
@@ -101,19 +111,19 @@ def boosters_fitted() -> int:
 
 
 def _train_booster(X: np.ndarray, rows: np.ndarray, y: np.ndarray, bound: np.ndarray | None,
-                   params: dict) -> tuple[lgb.Booster, float]:
+                   params: dict) -> tuple["lgb.Booster", float]:
     """One booster and its offset (the start score, added to every prediction)."""
     global _fits_done
     yy = np.asarray(y[rows], float)
     if bound is None or not np.any(bound[rows]):
-        data = lgb.Dataset(np.asarray(X[rows], np.float32), yy, free_raw_data=True, params={"verbosity": -1})
-        booster, offset = lgb.train(params, data), 0.0
+        data = _lgb().Dataset(np.asarray(X[rows], np.float32), yy, free_raw_data=True, params={"verbosity": -1})
+        booster, offset = _lgb().train(params, data), 0.0
     else:
         b = np.asarray(bound[rows])
         offset = float(np.mean(yy[b == 0])) if np.any(b == 0) else float(np.mean(yy))
-        data = lgb.Dataset(np.asarray(X[rows], np.float32), yy, init_score=np.full(len(rows), offset),
+        data = _lgb().Dataset(np.asarray(X[rows], np.float32), yy, init_score=np.full(len(rows), offset),
                            free_raw_data=True, params={"verbosity": -1})
-        booster = lgb.train({**params, "objective": censored_squared_objective(yy, b)}, data)
+        booster = _lgb().train({**params, "objective": censored_squared_objective(yy, b)}, data)
     with _fits_lock:
         _fits_done += 1
     return booster, offset
@@ -211,6 +221,6 @@ class SiteRegressor:
     def from_strings(cls, models: dict[str, str], per_kind: bool, seed: int = 42,
                      params: BoosterParams | None = None, offsets: dict | None = None) -> "SiteRegressor":
         reg = cls(params=params or BoosterParams(), per_kind=per_kind, seed=seed)
-        reg.boosters_ = {k: lgb.Booster(model_str=s) for k, s in models.items()}
+        reg.boosters_ = {k: _lgb().Booster(model_str=s) for k, s in models.items()}
         reg.offsets_ = {k: float(v) for k, v in (offsets or {}).items()}
         return reg

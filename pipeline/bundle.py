@@ -12,6 +12,7 @@ import shutil
 import tempfile
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
@@ -19,7 +20,9 @@ import pandas as pd
 from pkasite.features.site_features import FeatureSettings
 from pkasite.models.calibration import ConformalCalibrator
 from pkasite.models.microstates import InteractionModel
-from pkasite.models.regressor import SiteRegressor
+
+if TYPE_CHECKING:  # imported where a bundle is loaded: LightGBM (and the scikit-learn it pulls in) cost
+    from pkasite.models.regressor import SiteRegressor  # ~90 MB, which processes that only read files never pay
 
 BUNDLE_FORMAT = 1
 MANIFEST = "manifest.json"
@@ -118,6 +121,7 @@ def verify_bundle(path: Path) -> dict:
 def load_bundle(path: Path) -> ModelBundle:
     path = Path(path)
     verify_bundle(path)
+    from pkasite.models.regressor import SiteRegressor
     config = json.loads((path / "config.json").read_text())
     boosters = {p.stem.removeprefix("booster_"): p.read_text() for p in sorted(path.glob("booster_*.txt"))}
     reg = SiteRegressor.from_strings(boosters, per_kind=config["per_kind"], seed=config["seed"],
