@@ -42,7 +42,7 @@ class ModelBundle:
     domain: dict          # threshold, type_support, elements, max_heavy_atoms, min_type_support
     train_bits: dict      # kind -> uint8 matrix of training-site neighbourhood bits
     card: dict
-    residuals: pd.DataFrame
+    residuals: pd.DataFrame | None                  # None when loaded for prediction (with_tables=False)
     cv_metrics: pd.DataFrame | None = None      # for the validation report
     cv_predictions: pd.DataFrame | None = None
     curation: dict | None = None
@@ -118,8 +118,12 @@ def verify_bundle(path: Path) -> dict:
     return manifest
 
 
-def load_bundle(path: Path) -> ModelBundle:
+def load_bundle(path: Path, with_tables: bool = True) -> ModelBundle:
+    """The bundle at ``path``, its sha256 manifest checked.  ``with_tables=False`` leaves out the tables
+    only reports and comparisons read (CV residuals, metrics, predictions, coverage; about 60 MB in
+    memory), as prediction processes do."""
     path = Path(path)
+    tables = _optional if with_tables else (lambda p, read: None)
     verify_bundle(path)
     from pkasite.models.regressor import SiteRegressor
     config = json.loads((path / "config.json").read_text())
@@ -133,13 +137,13 @@ def load_bundle(path: Path) -> ModelBundle:
         regressor=reg, settings=FeatureSettings.from_dict(config["features"]), site_types=config["site_types"],
         catalog_version=str(config["catalog_version"]), calibrator=ConformalCalibrator.from_dict(config["calibrator"]),
         domain=config["domain"], train_bits=bits, card=json.loads((path / "model_card.json").read_text()),
-        residuals=pd.read_parquet(path / "cv_residuals.parquet"),
-        cv_metrics=_optional(path / "cv_metrics.parquet", pd.read_parquet),
-        cv_predictions=_optional(path / "cv_predictions.parquet", pd.read_parquet),
+        residuals=tables(path / "cv_residuals.parquet", pd.read_parquet),
+        cv_metrics=tables(path / "cv_metrics.parquet", pd.read_parquet),
+        cv_predictions=tables(path / "cv_predictions.parquet", pd.read_parquet),
         curation=_optional(path / "curation_summary.json", lambda p: json.loads(p.read_text())),
         molecule_calibrator=(ConformalCalibrator.from_dict(config["molecule_calibrator"])
                              if config.get("molecule_calibrator") else None),
-        coverage=_optional(path / "interval_coverage.parquet", pd.read_parquet),
+        coverage=tables(path / "interval_coverage.parquet", pd.read_parquet),
         interactions=InteractionModel.from_dict(config["interactions"]) if config.get("interactions") else None,
         path=path)
 

@@ -284,7 +284,7 @@ def _load_model(bundle_path: str) -> None:
 
     from .bundle import load_bundle
     RDLogger.DisableLog("rdApp.*")
-    _BUNDLE = load_bundle(Path(bundle_path))
+    _BUNDLE = load_bundle(Path(bundle_path), with_tables=False)
 
 
 def _predict_task(task: dict) -> tuple[pd.DataFrame, pd.DataFrame]:

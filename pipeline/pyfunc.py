@@ -60,7 +60,7 @@ def predict_frame(bundle, model_input: pd.DataFrame) -> pd.DataFrame:
 
 
 def predict_frame_from_path(path: Path, model_input: pd.DataFrame) -> pd.DataFrame:
-    return predict_frame(load_bundle(path), model_input)
+    return predict_frame(load_bundle(path, with_tables=False), model_input)
 
 
 class SitePkaModel(mlflow.pyfunc.PythonModel):
@@ -78,7 +78,7 @@ class SitePkaModel(mlflow.pyfunc.PythonModel):
     @property
     def bundle(self):
         if self._bundle is None:
-            self._bundle = load_bundle(self.bundle_path)
+            self._bundle = load_bundle(self.bundle_path, with_tables=False)
         return self._bundle
 
     def isolate(self, workers: int = 1, mol_timeout: float | None = None, request_timeout: float = 60.0) -> None:

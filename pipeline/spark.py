@@ -55,7 +55,7 @@ def _executor_bundle(path: Path):
     if path not in _LOADED:
         from .bundle import load_bundle
         _LOADED.clear()
-        _LOADED[path] = load_bundle(path)
+        _LOADED[path] = load_bundle(path, with_tables=False)
     return _LOADED[path]
 
 
