@@ -187,3 +187,14 @@ def test_explain_adds_chemistry_words(tmp_path):
     bad = subprocess.run([sys.executable, "-m", "pkasite.pipeline.cli", "predict", str(src), "-o", str(tmp_path / "o.csv"),
                           "--explain"], capture_output=True, text=True)
     assert bad.returncode == 2 and "give --sites too" in bad.stderr
+
+
+def test_progress_total_counts_rows_of_every_format(tmp_path):
+    from pkasite.pipeline.batch import count_rows
+    (tmp_path / "a.csv").write_text("id,smiles\na,CCO\nb,CCN\nc,CCC")          # no final line break
+    (tmp_path / "b.smi").write_text("CCO a\nCCN b\n")
+    pd.DataFrame({"smiles": ["CCO"] * 5}).to_parquet(tmp_path / "c.parquet")
+    with Chem.SDWriter(str(tmp_path / "d.sdf")) as w:
+        for s in ("CCO", "CCN", "CCC", "CCCl"):
+            w.write(Chem.MolFromSmiles(s))
+    assert [count_rows(tmp_path / n) for n in ("a.csv", "b.smi", "c.parquet", "d.sdf")] == [3, 2, 5, 4]
