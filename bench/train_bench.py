@@ -11,6 +11,7 @@ calibration and domain, final fit, held-out evaluation, bundle and report.
 Runs:
   default    configs/default.yaml: all three CV schemes with baselines (target <= 180 s on 2 idle cores)
   quick      the same with --quick: molecule-grouped CV only, no baselines (target <= 60 s)
+  default_loto  as default, with one unseen-site-type fold per type (cv.site_type_folds 0)
   published  configs/published_split.yaml: fit on the publishers' training files, test once on
              their test files (target: test RMSE <= 1.2 per kind, molecule's predicted constant)
 
@@ -35,6 +36,8 @@ REPO = Path(__file__).resolve().parents[1]
 RUNS = {"default": ("default.yaml", {}),
         "quick": ("default.yaml", {"cv.schemes": ["molecule"], "cv.baselines": False}),
         "published": ("published_split.yaml", {}),
+        # the unseen-site-type scheme with one fold per type (the default groups the types into 5 folds)
+        "default_loto": ("default.yaml", {"cv.site_type_folds": 0}),
         # for choosing settings: molecule-grouped CV on the publishers' training files only (read the CV
         # rows; the test figures it also prints must not decide anything)
         "train_cv": ("published_split.yaml", {"cv.schemes": ["molecule"], "cv.baselines": False})}

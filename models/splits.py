@@ -56,3 +56,22 @@ def leave_one_group_out(groups: Sequence, min_size: int = 1) -> Iterator[tuple[s
             continue
         test = groups == g
         yield str(g), np.flatnonzero(~test), np.flatnonzero(test)
+
+
+def unseen_group_folds(groups: Sequence, min_size: int, n_splits: int,
+                       seed: int) -> Iterator[tuple[str, np.ndarray, np.ndarray]]:
+    """Folds that hold whole groups out: every group with at least ``min_size`` rows is tested once,
+    in one of ``n_splits`` folds balanced by row count (as :func:`group_kfold`); smaller groups are
+    always trained on.  ``n_splits`` 0 (or more folds than such groups): one fold per group, named after
+    it (:func:`leave_one_group_out`).  Yields ``(name, train_idx, test_idx)``."""
+    groups = np.asarray(groups, dtype=object).astype(str)
+    uniq, counts = np.unique(groups, return_counts=True)
+    big = uniq[counts >= min_size]
+    if n_splits <= 0 or n_splits >= len(big):
+        yield from leave_one_group_out(groups, min_size)
+        return
+    eligible = np.flatnonzero(np.isin(groups, big))
+    for f, (_, test) in enumerate(group_kfold(groups[eligible], n_splits, seed)):
+        test_rows = eligible[test]
+        held = np.isin(groups, np.unique(groups[test_rows]))
+        yield f"fold{f}", np.flatnonzero(~held), np.flatnonzero(held)

@@ -129,7 +129,9 @@ class CVConfig(_Strict):
     folds: int = 5
     schemes: list[Literal["molecule", "scaffold", "site_type"]] = Field(
         default_factory=lambda: ["molecule", "scaffold", "site_type"])
-    site_type_min_count: int = 40    # leave-one-site-type-out only for types with this many labels
+    site_type_min_count: int = 40    # unseen-site-type CV holds out only types with this many labels
+    site_type_folds: int = Field(5, ge=0)  # folds of the unseen-site-type scheme, each holding out a group
+                                     # of types entirely; 0: one fold per type (leave-one-type-out)
     bootstrap: int = 1000
     baselines: bool = True
 

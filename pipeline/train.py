@@ -20,7 +20,7 @@ from pkasite.features.sites import load_catalog
 from pkasite.models.domain import tanimoto_max
 from pkasite.models.metrics import bootstrap_metrics, point_metrics
 from pkasite.models.regressor import FitJob, SiteRegressor, fit_many
-from pkasite.models.splits import group_kfold, leave_one_group_out, murcko_scaffold
+from pkasite.models.splits import group_kfold, murcko_scaffold, unseen_group_folds
 
 from .config import RunConfig, booster_params
 from . import evaluation as E
@@ -90,7 +90,8 @@ def make_splits(prep: Prepared, scheme: str, cfg: RunConfig) -> list[tuple[str, 
         return [(f"fold{i}", ids[tr], ids[te]) for i, (tr, te) in enumerate(group_kfold(groups, cfg.cv.folds, cfg.seed))]
     if scheme == "site_type":
         return [(name, ids[tr], ids[te]) for name, tr, te in
-                leave_one_group_out(mols["site_type"].to_numpy(), cfg.cv.site_type_min_count)]
+                unseen_group_folds(mols["site_type"].to_numpy(), cfg.cv.site_type_min_count,
+                                   cfg.cv.site_type_folds, cfg.seed)]
     raise ValueError(f"unknown CV scheme {scheme!r}")
 
 
@@ -145,20 +146,23 @@ def _test_rows(prep: Prepared, test_mols: np.ndarray) -> np.ndarray:
 def site_jobs(prep: Prepared, splits, cfg: RunConfig, unseen_type: bool = False) -> list[FitJob]:
     """One site-regressor job per fold, fitting only the kinds its test molecules need.
 
-    ``unseen_type`` (leave-one-site-type-out, fold names are site types): the held-out type stays
-    out of training altogether, its one-sided bounds in other molecules included.
+    ``unseen_type`` (unseen-site-type folds, whose test molecules are those labeled with the held-out
+    types): the held-out types stay out of training altogether, their one-sided bounds in other
+    molecules included.
     """
     kinds = prep.sites["kind"].to_numpy()
     types = prep.sites["site_type"].to_numpy()
     candidate = prep.sites["role"].to_numpy() == "candidate"
+    labels = _labels(prep).set_index("mol_id")["site_type"]
     jobs = []
     for name, tr, te in splits:
         test = _test_rows(prep, te)
         if unseen_type:
-            # only the held-out type's kind: its molecules' other-kind sites stay unpredicted (they carry
+            # only the held-out types' kinds: their molecules' other-kind sites stay unpredicted (they carry
             # no pair term with the measured kind's sites; see InteractionModel.opposite_factor)
+            held = np.unique(labels.reindex(te).dropna().to_numpy().astype(str))
             job = site_job(prep, tr, cfg, only_kinds=set(kinds[test[candidate[test]]]))
-            job = replace(job, rows=job.rows[types[job.rows] != name])
+            job = replace(job, rows=job.rows[~np.isin(types[job.rows], held)])
         else:
             job = site_job(prep, tr, cfg, only_kinds=set(kinds[test]))
         jobs.append(job)

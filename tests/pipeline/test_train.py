@@ -72,6 +72,9 @@ def test_mlflow_run_registry_and_pyfunc(trained):
     assert {"cv_rmse_molecule_overall", "cv_rmse_scaffold_acid", "baseline_mol_morgan_cv_rmse_molecule_overall",
             "site_attribution_check_cv_rmse_molecule_overall"} <= set(run.data.metrics)
     assert "interval_coverage_scaffold_molecule_acid_90" in run.data.metrics
+    # per-site-type figures live in the cv_metrics.csv artifact, not as thousands of MLflow metrics
+    per_type = {s.replace(":", "_") for s in pd.read_csv(out.cv_metrics)["subset"] if s.startswith("type:")}
+    assert per_type and not [k for k in run.data.metrics if any(k.endswith(t) for t in per_type)]
     assert run.data.tags["dataset_sha256"] and run.data.tags["code_version"]
     exp = client.get_experiment(run.info.experiment_id)
     assert exp.name == "test-small"
