@@ -147,8 +147,10 @@ def _card(cfg: RunConfig, registry: Registry, measurements: pd.DataFrame, n_mole
                         f"(pka_low, pka_high) and molecule intervals (acid_pka_low ... base_pka_high) are "
                         f"split-conformal by similarity bin from value-free molecule-grouped CV residuals. Observed "
                         f"coverage on data the calibration never saw: " + coverage_summary(coverage) + "."),
-        "limitations": ["Sites are treated as independent when macroscopic constants and charge are derived; "
-                        "interactions between nearby sites (e.g. the second constant of a diacid) are not modelled.",
+        "limitations": ["Macroscopic constants and charge come from microstates whose like charged sites repel "
+                        "by a pair term that knows only the bond count between them and shared aromatic systems "
+                        "(no geometry): cage amines and rings with several short paths between two sites are "
+                        "under-coupled, and opposite charges get no extra attraction (see the README).",
                         "Training labels are molecule-level constants attached to one site; the other sites of "
                         "a measured molecule enter training only as one-sided bounds (at least as weak as the "
                         "value) where their site type can hold it.",
