@@ -32,6 +32,7 @@ REPO = Path(__file__).resolve().parents[1]
 GROUPS = {  # feature-name prefix -> what the group is (features/FEATURES.md)
     "env_": "site-rooted environments",
     "type_": "site-type one-hot",
+    "type_prior": "catalog prior of the site type (features.type_prior)",
     "ctx_": "site atom context",
     "res_": "resonance partners",
     "ind_": "inductive substituents by distance",
@@ -65,6 +66,8 @@ def _columns(names: list[str], group: str) -> np.ndarray:
     names = np.array(names)
     if group == "mol_desc":
         return np.flatnonzero(np.char.startswith(names, "mol_") & ~np.char.startswith(names, "mol_fp_"))
+    if group == "type_":  # the one-hot columns only
+        return np.flatnonzero(np.char.startswith(names, group) & (names != "type_prior"))
     return np.flatnonzero(np.char.startswith(names, group))
 
 

@@ -18,6 +18,9 @@ Runs:
 `--ablation` runs bench/ablation.py: on the published split, each feature group off in turn and
 other training choices, value-free figures; features/FEATURES.md holds the table it printed.
 
+A run name may carry overrides for a side-by-side record in one invocation:
+`--runs published+features.type_prior=false,published`.
+
 Run on an otherwise idle machine (`uptime`): LightGBM slows down badly when cores are shared.
 """
 from __future__ import annotations
@@ -43,13 +46,29 @@ RUNS = {"default": ("default.yaml", {}),
         "train_cv": ("published_split.yaml", {"cv.schemes": ["molecule"], "cv.baselines": False})}
 
 
+def run_settings(name: str) -> tuple[str, dict]:
+    """Config file and overrides of a run name: a name of RUNS, optionally followed by
+    ``+KEY=VALUE`` overrides (``published+features.type_prior=false``)."""
+    import yaml
+    base, *extra = name.split("+")
+    if base not in RUNS:
+        raise SystemExit(f"unknown run {base!r}; runs: {', '.join(RUNS)}")
+    config, preset = RUNS[base]
+    for item in extra:
+        key, sep, value = item.partition("=")
+        if not sep:
+            raise SystemExit(f"run {name!r}: expected +KEY=VALUE, got {item!r}")
+        preset = {**preset, key: yaml.safe_load(value)}
+    return config, preset
+
+
 def one_run(name: str, mirror: Path, overrides: dict, out_json: Path) -> None:
     """Body of one measured run (called in a child process)."""
     from pkasite.pipeline.config import load_config
     from pkasite.pipeline.stages import StageClock
     from pkasite.pipeline.workflow import curate_step, pull_step, train_step
 
-    config, preset = RUNS.get(name, ("published_split.yaml", {}))
+    config, preset = run_settings(name)
     with tempfile.TemporaryDirectory() as tmp:
         tmp = Path(tmp)
         cfg = load_config(REPO / "configs" / config).with_overrides(

@@ -55,6 +55,9 @@ class FeatureSettings:
     mol_fp_bits   width of the molecule-level Morgan count fingerprint
     mol_fp_radius radius of the molecule-level fingerprint
     use_counts    counts (True) or 0/1 presence (False) in the fingerprint blocks
+    type_prior    add ``type_prior``: the typical aqueous pKa the site catalog gives the site's type
+                  (NaN for a type it does not list), so that trees can group types by their usual
+                  strength and place a rare or unseen type among types of similar strength
     """
 
     radii: tuple[int, ...] = (1, 2, 3)
@@ -62,6 +65,7 @@ class FeatureSettings:
     mol_fp_bits: int = 512
     mol_fp_radius: int = 2
     use_counts: bool = True
+    type_prior: bool = False   # False keeps the column layout of bundles written before it existed
 
     def __post_init__(self) -> None:
         radii = self.radii
@@ -90,6 +94,9 @@ class FeatureSettings:
         if not isinstance(self.use_counts, (bool, np.bool_)):
             raise ValueError(f"use_counts must be true or false, got {self.use_counts!r}")
         object.__setattr__(self, "use_counts", bool(self.use_counts))
+        if not isinstance(self.type_prior, (bool, np.bool_)):
+            raise ValueError(f"type_prior must be true or false, got {self.type_prior!r}")
+        object.__setattr__(self, "type_prior", bool(self.type_prior))
 
     def to_dict(self) -> dict[str, Any]:
         """Plain JSON/YAML-ready dict, including the feature version."""
@@ -100,6 +107,7 @@ class FeatureSettings:
             "mol_fp_bits": self.mol_fp_bits,
             "mol_fp_radius": self.mol_fp_radius,
             "use_counts": self.use_counts,
+            "type_prior": self.type_prior,
         }
 
     @classmethod
@@ -112,7 +120,7 @@ class FeatureSettings:
                 f"feature settings were written for feature version {version}, this code builds "
                 f"version {FEATURES_VERSION}; re-featurize and retrain the model"
             )
-        allowed = {"radii", "n_bits", "mol_fp_bits", "mol_fp_radius", "use_counts"}
+        allowed = {"radii", "n_bits", "mol_fp_bits", "mol_fp_radius", "use_counts", "type_prior"}
         unknown = sorted(set(data) - allowed)
         if unknown:
             raise ValueError(f"unknown feature setting(s) {unknown}; allowed keys: {sorted(allowed)}")
@@ -174,6 +182,7 @@ class _Layout:
     chg: int
     hb: int
     mol: int  # descriptors followed by the fingerprint
+    prior: int = -1  # the type_prior column (-1: not built)
 
     @property
     def n(self) -> int:
@@ -202,6 +211,9 @@ def _layout(settings: FeatureSettings, site_types: tuple[str, ...]) -> _Layout:
     names += [f"env_r{r}_{b}" for r in settings.radii for b in range(settings.n_bits)]
     typ = len(names)
     names += [f"type_{t}" for t in types]
+    prior = len(names) if settings.type_prior else -1
+    if settings.type_prior:
+        names.append("type_prior")
     kind = len(names)
     names.append("kind_acid")
     ctx = len(names)
@@ -218,7 +230,14 @@ def _layout(settings: FeatureSettings, site_types: tuple[str, ...]) -> _Layout:
     names += MOL_DESC_NAMES
     names += [f"mol_fp_{b}" for b in range(settings.mol_fp_bits)]
     return _Layout(tuple(names), {t: typ + i for i, t in enumerate(types)},
-                   env, typ, kind, ctx, res, ind, chg, hb, mol)
+                   env, typ, kind, ctx, res, ind, chg, hb, mol, prior)
+
+
+@lru_cache(maxsize=1)
+def type_priors() -> Mapping[str, float]:
+    """Site type name -> the packaged site catalog's typical aqueous pKa of that type."""
+    from .sites import load_catalog  # the catalog module imports YAML and SMARTS; load it when needed
+    return {t.name: float(t.prior) for t in load_catalog().types}
 
 
 def site_feature_names(settings: FeatureSettings | None = None, site_types: Iterable[str] = ()) -> list[str]:
@@ -579,6 +598,7 @@ def featurize_sites(
     nb = settings.n_bits
     n_res, n_ind, n_chg, n_hb = len(RES_NAMES), len(IND_NAMES), len(CHG_NAMES), len(HB_NAMES)
     other_col = layout.types[OTHER_TYPE]
+    priors = type_priors() if layout.prior >= 0 else {}
     for rows in groups.values():
         mol = checked[rows[0]][0]
         md = _MolData(mol, settings, {checked[r][1] for r in rows})
@@ -592,6 +612,8 @@ def featurize_sites(
                 if ident is not None:
                     x[layout.env + i * nb + ident % nb] += 1.0
             x[layout.types.get(site_type, other_col)] = 1.0
+            if layout.prior >= 0:
+                x[layout.prior] = priors.get(site_type, np.nan)
             x[layout.kind] = 1.0 if kind == "acid" else 0.0
             x[layout.ctx:layout.ctx + len(CTX_NAMES)] = md.ctx(s)
             x[layout.res:layout.res + n_res] = md.res(s)

@@ -94,6 +94,7 @@ class FeaturesConfig(_Strict):
     mol_fp_bits: int = 512
     mol_fp_radius: int = 2
     use_counts: bool = True
+    type_prior: bool = True    # a column with the site catalog's typical pKa of the site's type
 
 
 class _ModelSettings(_Strict):

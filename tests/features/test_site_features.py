@@ -25,6 +25,7 @@ from pkasite.features.site_features import (
     featurize_sites,
     mol_fingerprint_counts,
     site_feature_names,
+    type_priors,
 )
 
 SMALL = FeatureSettings(radii=(1, 2), n_bits=64, mol_fp_bits=128)
@@ -105,6 +106,35 @@ def test_settings_round_trip_and_validation():
         FeatureSettings(radii=(9,))
     with pytest.raises(ValueError):
         FeatureSettings(n_bits=-1)
+
+
+def test_type_prior_column_carries_the_catalog_prior_of_the_type():
+    with_prior = FeatureSettings(radii=(1,), n_bits=32, mol_fp_bits=32, type_prior=True)
+    types = ["carboxylic_acid", "phenol", "aliphatic_amine_primary"]
+    names = site_feature_names(with_prior, types)
+    assert "type_prior" in names and "type_prior" not in site_feature_names(SMALL, types)
+    assert len(names) == len(site_feature_names(FeatureSettings(radii=(1,), n_bits=32, mol_fp_bits=32), types)) + 1
+    acetic, phenol, ethylamine = (Chem.MolFromSmiles(s) for s in ("CC(=O)O", "Oc1ccccc1", "CCN"))
+    X = featurize_sites([(acetic, 3, "acid", "carboxylic_acid"), (phenol, 0, "acid", "phenol"),
+                         (ethylamine, 2, "base", "aliphatic_amine_primary"), (ethylamine, 2, "base", "not_a_type")],
+                        with_prior, types)
+    col = X[:, names.index("type_prior")]
+    priors = type_priors()
+    assert col[:3].tolist() == pytest.approx([priors[t] for t in types])
+    assert np.isnan(col[3])  # a type the catalog does not list has no prior (LightGBM: missing)
+    # The catalog's typical values keep the textbook order (common practice; from memory, CRC Handbook:
+    # acetic acid 4.76, phenol 9.99, ethylammonium 10.6): carboxylic acid < phenol < primary ammonium
+    assert 3.0 < col[0] < 5.5 < col[1] < col[2]
+
+
+def test_settings_without_type_prior_read_as_off():
+    # bundles written before the column existed carry no type_prior key: their layout has no such column
+    old = {k: v for k, v in FeatureSettings(type_prior=True).to_dict().items() if k != "type_prior"}
+    assert FeatureSettings.from_dict(old).type_prior is False
+    on = FeatureSettings(type_prior=True)
+    assert FeatureSettings.from_dict(on.to_dict()) == on
+    with pytest.raises(ValueError, match="type_prior"):
+        FeatureSettings(type_prior="yes")
 
 
 def test_bad_items_are_rejected_with_the_item_number():
