@@ -27,6 +27,7 @@ from rdkit import Chem
 from rdkit.Chem import rdMolDescriptors, rdPartialCharges
 
 from .fingerprints import MAX_RADIUS, mol_fingerprint_counts, site_environment_ids
+from .graph import atoms_of, bonds_of
 
 __all__ = [
     "FEATURES_VERSION",
@@ -260,7 +261,7 @@ class _MolData:
         n = mol.GetNumAtoms()
         self.mol = mol
         self.n = n
-        atoms = list(mol.GetAtoms())
+        atoms = atoms_of(mol)
         self.atoms = atoms
         z = np.fromiter((a.GetAtomicNum() for a in atoms), dtype=np.int16, count=n)
         self.z = z
@@ -274,7 +275,7 @@ class _MolData:
         dbl_n: list[list[int]] = [[] for _ in range(n)]
         dbl_c: list[list[int]] = [[] for _ in range(n)]
         triple_n = [False] * n
-        for b in mol.GetBonds():
+        for b in bonds_of(mol):
             i, j = b.GetBeginAtomIdx(), b.GetEndAtomIdx()
             zi, zj = z[i], z[j]
             if zj == 1:
@@ -394,7 +395,7 @@ class _MolData:
         rdPartialCharges.ComputeGasteigerCharges(work)
         g = np.empty(n)
         gh = np.empty(n)
-        for k, a in enumerate(work.GetAtoms()):
+        for k, a in enumerate(atoms_of(work)):
             g[k] = a.GetDoubleProp("_GasteigerCharge")
             gh[k] = a.GetDoubleProp("_GasteigerHCharge")  # summed over implicit Hs
         self.gch = np.nan_to_num(g, nan=0.0, posinf=0.0, neginf=0.0)

@@ -22,6 +22,8 @@ from typing import Mapping, Sequence
 import yaml
 from rdkit import Chem
 
+from .graph import atoms_of
+
 __all__ = [
     "KINDS",
     "SiteType",
@@ -129,6 +131,22 @@ class Catalog:
     by_name: Mapping[str, SiteType] = field(default_factory=dict)
     _type_patterns: tuple[_Pattern, ...] = ()
     _exclusion_patterns: tuple[_Pattern, ...] = ()
+    _screens: dict = field(default_factory=dict, repr=False)  # element set -> patterns worth a search
+
+    def screened(self, elements: frozenset[int]) -> tuple[tuple[int, ...], tuple[int, ...]]:
+        """Indices of the exclusions and of the types whose element screen a molecule with atom codes
+        ``elements`` passes (see :class:`_Pattern`).  A library holds few distinct element sets, so the
+        answer is kept per set (up to 4096 sets) instead of screening ~130 patterns per molecule."""
+        hit = self._screens.get(elements)
+        if hit is None:
+            def passing(patterns):
+                return tuple(i for i, p in enumerate(patterns)
+                             if not any(elements.isdisjoint(need) for need in p.elements))
+            hit = (passing(self._exclusion_patterns), passing(self._type_patterns))
+            if len(self._screens) >= 4096:
+                self._screens.clear()
+            self._screens[elements] = hit
+        return hit
 
 
 # ----------------------------------------------------------------------------- catalog loading
@@ -316,14 +334,9 @@ def load_catalog(path: str | Path | None = None) -> Catalog:
 # ----------------------------------------------------------------------------- perception
 
 
-def _mapped_atoms(mol: Chem.Mol, pattern: _Pattern, elements: frozenset[int] | None = None) -> set[int]:
+def _mapped_atoms(mol: Chem.Mol, pattern: _Pattern) -> set[int]:
     """Indices of molecule atoms matched by the pattern's mapped atom (all matches, not uniquified).
-
-    ``elements`` (the molecule's atom codes, see :class:`_Pattern`) lets a pattern that needs an
-    element the molecule lacks skip the search.
-    """
-    if elements is not None and any(elements.isdisjoint(need) for need in pattern.elements):
-        return set()
+    Callers screen patterns by element first (:meth:`Catalog.screened`)."""
     matches = mol.GetSubstructMatches(pattern.query, uniquify=False, maxMatches=100000)
     return {match[pattern.mapped] for match in matches}
 
@@ -340,13 +353,14 @@ def find_sites(mol: Chem.Mol, catalog: Catalog | None = None) -> list[Site]:
     if mol is None:
         raise SiteError("find_sites needs an RDKit molecule, got None (unreadable SMILES?)")
     catalog = catalog or load_catalog()
-    elements = frozenset(map(_atom_code, mol.GetAtoms()))
+    exclusion_ids, type_ids = catalog.screened(frozenset(map(_atom_code, atoms_of(mol))))
     excluded = {kind: set() for kind in KINDS}
-    for exclusion, pattern in zip(catalog.exclusions, catalog._exclusion_patterns):
-        excluded[exclusion.kind] |= _mapped_atoms(mol, pattern, elements)
+    for i in exclusion_ids:
+        excluded[catalog.exclusions[i].kind] |= _mapped_atoms(mol, catalog._exclusion_patterns[i])
     found: dict[tuple[int, str], Site] = {}
-    for site_type, pattern in zip(catalog.types, catalog._type_patterns):
-        for atom in _mapped_atoms(mol, pattern, elements):
+    for i in type_ids:
+        site_type = catalog.types[i]
+        for atom in _mapped_atoms(mol, catalog._type_patterns[i]):
             key = (atom, site_type.kind)
             if key not in found and atom not in excluded[site_type.kind]:
                 found[key] = Site(atom, site_type.name, site_type.kind, site_type.prior)

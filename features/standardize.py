@@ -15,6 +15,8 @@ from functools import lru_cache
 from rdkit import Chem, RDLogger
 from rdkit.Chem.MolStandardize import rdMolStandardize
 
+from .graph import atoms_of
+
 ORIGINAL_INDEX = "pkasite_orig_idx"
 
 
@@ -66,7 +68,7 @@ def standardize_mol(mol: Chem.Mol, site_atom: int | None = None, with_inchikey: 
     if site_atom is not None and not 0 <= site_atom < mol.GetNumAtoms():
         raise StructureError(f"site_atom {site_atom} is not an atom index of the structure")
     mol = Chem.Mol(mol)
-    for atom in mol.GetAtoms():
+    for atom in atoms_of(mol):
         atom.SetIntProp(ORIGINAL_INDEX, atom.GetIdx())
     chooser, normalizer, uncharger = _tools()
     try:
@@ -76,7 +78,7 @@ def standardize_mol(mol: Chem.Mol, site_atom: int | None = None, with_inchikey: 
         Chem.SanitizeMol(out)
     except Exception as exc:  # RDKit raises several unrelated types here
         raise StructureError(f"standardization failed: {exc}") from exc
-    if not any(a.GetAtomicNum() == 6 for a in out.GetAtoms()):
+    if not any(a.GetAtomicNum() == 6 for a in atoms_of(out)):
         raise StructureError("no carbon atom: not an organic structure")
     smiles = Chem.MolToSmiles(out)
     order = list(out.GetProp("_smilesAtomOutputOrder").strip("[]").rstrip(",").split(","))

@@ -20,6 +20,7 @@ from rdkit import Chem
 from rdkit.Chem import Descriptors
 
 from pkasite.features.fingerprints import site_neighbourhood_bits
+from pkasite.features.graph import atoms_of
 from pkasite.features.site_features import featurize_sites
 from pkasite.features.sites import find_sites, load_catalog
 from pkasite.features.standardize import StructureError, quiet_rdkit, standardize_mol
@@ -108,7 +109,7 @@ def _parse(text: str, fmt: str, sanitize: bool) -> Chem.Mol | None:
 
 def size_problem(mol: Chem.Mol) -> str | None:
     """Why an unsanitized molecule is too large to standardize, else None (graph counts only, no perception)."""
-    atomic = [a.GetAtomicNum() for a in mol.GetAtoms()]
+    atomic = [a.GetAtomicNum() for a in atoms_of(mol)]
     frags = Chem.GetMolFrags(mol, sanitizeFrags=False)
     heavy = max((sum(atomic[i] > 1 for i in frag) for frag in frags), default=0)
     if heavy > MAX_HEAVY_ATOMS:
@@ -156,21 +157,22 @@ def prepare_input(smiles, fmt: str = "smiles") -> PreparedInput:
         out.smiles = written
         return out
     out = PreparedInput()
-    if any(a.GetNumRadicalElectrons() for a in mol.GetAtoms()):
+    atoms = atoms_of(mol)
+    if any(a.GetNumRadicalElectrons() for a in atoms):
         return PreparedInput("radical", ["radicals are outside what the model covers"])
     if len(Chem.GetMolFrags(mol)) > 1:
         out.warnings.append("mixture or salt: predicted the largest organic fragment")
-    if any(a.GetIsotope() for a in mol.GetAtoms()):
-        for a in mol.GetAtoms():
+    if any(a.GetIsotope() for a in atoms):
+        for a in atoms:
             a.SetIsotope(0)
         out.warnings.append("isotope labels ignored")
-    if any(a.GetFormalCharge() for a in mol.GetAtoms()):
+    if any(a.GetFormalCharge() for a in atoms):
         out.warnings.append("charged input: neutralized where a proton could be added or removed")
     try:
         std = standardize_mol(mol, with_inchikey=False)
     except StructureError as exc:
         return PreparedInput("invalid_structure", [str(exc)])
-    elements = {a.GetSymbol() for a in std.mol.GetAtoms()} - ORGANIC
+    elements = {a.GetSymbol() for a in atoms_of(std.mol)} - ORGANIC
     if elements:
         return PreparedInput("unsupported_element", [f"element(s) {', '.join(sorted(elements))} not supported"])
     out.mol, out.original_atoms = std.mol, std.original_atoms
@@ -368,7 +370,7 @@ def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4, level: fl
             warns.append("no ionizable site found")
         if Descriptors.HeavyAtomCount(p.mol) > bundle.domain["max_heavy_atoms"]:
             warns.append(f"larger than any training molecule ({bundle.domain['max_heavy_atoms']} heavy atoms)")
-        unseen = {a.GetSymbol() for a in p.mol.GetAtoms()} - set(bundle.domain["elements"])
+        unseen = {a.GetSymbol() for a in atoms_of(p.mol)} - set(bundle.domain["elements"])
         if unseen:
             warns.append(f"element(s) {', '.join(sorted(unseen))} not seen in training")
         n_out = sum(not x for x in site_in_domain)
