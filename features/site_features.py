@@ -265,9 +265,13 @@ class _MolData:
         self.atoms = atoms
         z = np.fromiter((a.GetAtomicNum() for a in atoms), dtype=np.int16, count=n)
         self.z = z
+        zl = z.tolist()  # Python ints: scalar lookups on lists are much cheaper than on arrays
+        self.zl = zl
         self.aromatic = [a.GetIsAromatic() for a in atoms]
         fc = np.fromiter((a.GetFormalCharge() for a in atoms), dtype=np.float64, count=n)
         self.fc = fc
+        fcl = fc.tolist()
+        self.fcl = fcl
         self.nhs = [a.GetTotalNumHs(includeNeighbors=True) for a in atoms]
         nbrs: list[list[int]] = [[] for _ in range(n)]
         h_nbrs: list[list[int]] = [[] for _ in range(n)]
@@ -277,7 +281,7 @@ class _MolData:
         triple_n = [False] * n
         for b in bonds_of(mol):
             i, j = b.GetBeginAtomIdx(), b.GetEndAtomIdx()
-            zi, zj = z[i], z[j]
+            zi, zj = zl[i], zl[j]
             if zj == 1:
                 h_nbrs[i].append(j)
             else:
@@ -306,15 +310,15 @@ class _MolData:
         # nitro-type N: N with two terminal O neighbours (nitro, either drawing)
         nitro_o: list[list[int]] = [[] for _ in range(n)]
         for i in range(n):
-            if z[i] == 7:
-                term = [o for o in nbrs[i] if z[o] == 8 and heavy_deg[o] == 1]
+            if zl[i] == 7:
+                term = [o for o in nbrs[i] if zl[o] == 8 and heavy_deg[o] == 1]
                 if len(term) >= 2:
                     nitro_o[i] = term
         self.nitro_o = nitro_o
-        self.is_nitrile_c = [bool(triple_n[i]) and z[i] == 6 for i in range(n)]
+        self.is_nitrile_c = [bool(triple_n[i]) and zl[i] == 6 for i in range(n)]
         # amide-like N (lone pair tied up by an adjacent C=O / S=O / P=O)
         amide_n = [
-            z[i] == 7 and any(z[x] in (6, 15, 16) and dbl_o[x] for x in nbrs[i]) for i in range(n)
+            zl[i] == 7 and any(zl[x] in (6, 15, 16) and dbl_o[x] for x in nbrs[i]) for i in range(n)
         ]
         self.amide_n = amide_n
 
@@ -324,7 +328,7 @@ class _MolData:
         hyb = [a.GetHybridization() for a in atoms]
         self.hyb = hyb
         for i in range(n):
-            zi = z[i]
+            zi = zl[i]
             if zi == 1:
                 continue
             if zi == 9:
@@ -336,7 +340,7 @@ class _MolData:
             elif zi == 53:
                 cat[i, col["i"]] = 1
             elif zi == 6:
-                if sum(1 for x in nbrs[i] if z[x] == 9) >= 3:
+                if sum(1 for x in nbrs[i] if zl[x] == 9) >= 3:
                     cat[i, col["cf3"]] = 1
                 if self.is_nitrile_c[i]:
                     cat[i, col["cn"]] = 1
@@ -345,15 +349,15 @@ class _MolData:
             elif zi == 7:
                 if nitro_o[i]:
                     cat[i, col["no2"]] = 1
-                elif hyb[i] == Chem.HybridizationType.SP3 and not self.aromatic[i] and fc[i] == 0:
+                elif hyb[i] == Chem.HybridizationType.SP3 and not self.aromatic[i] and fcl[i] == 0:
                     cat[i, col["namine"]] = 1
             elif zi == 8:
-                if (not self.aromatic[i] and fc[i] == 0 and not dbl_o[i] and nbrs[i]
-                        and all(z[x] == 6 for x in nbrs[i]) and not any(i in dbl_o[x] for x in nbrs[i])):
+                if (not self.aromatic[i] and fcl[i] == 0 and not dbl_o[i] and nbrs[i]
+                        and all(zl[x] == 6 for x in nbrs[i]) and not any(i in dbl_o[x] for x in nbrs[i])):
                     cat[i, col["oalk"]] = 1
-            if fc[i] > 0 and not nitro_o[i] and not any(fc[x] < 0 for x in nbrs[i]):
+            if fcl[i] > 0 and not nitro_o[i] and not any(fcl[x] < 0 for x in nbrs[i]):
                 cat[i, col["pos"]] = 1
-            if fc[i] < 0 and not any(fc[x] > 0 for x in nbrs[i]):
+            if fcl[i] < 0 and not any(fcl[x] > 0 for x in nbrs[i]):
                 cat[i, col["neg"]] = 1
             if self.aromatic[i]:
                 cat[i, col["arom"]] = 1
@@ -367,11 +371,11 @@ class _MolData:
         # H-bond acceptors: O not positive; N not positive, not amide-like, not pyrrole-type
         acc = np.zeros(n, dtype=bool)
         for i in range(n):
-            if fc[i] > 0:
+            if fcl[i] > 0:
                 continue
-            if z[i] == 8:
+            if zl[i] == 8:
                 acc[i] = True
-            elif z[i] == 7 and not amide_n[i] and not nitro_o[i]:
+            elif zl[i] == 7 and not amide_n[i] and not nitro_o[i]:
                 if self.aromatic[i] and (self.nhs[i] > 0 or heavy_deg[i] >= 3):
                     continue
                 acc[i] = True
@@ -427,7 +431,7 @@ class _MolData:
     def ctx(self, s: int) -> list[float]:
         a = self.atoms[s]
         el = [0.0] * 6
-        el[_ELEMENT_COL.get(int(self.z[s]), 5)] = 1.0
+        el[_ELEMENT_COL.get(self.zl[s], 5)] = 1.0
         ring = self.ri.NumAtomRings(s)
         h = self.hyb[s]
         HT = Chem.HybridizationType
@@ -439,14 +443,14 @@ class _MolData:
             float(a.GetTotalDegree()),
             float(len(self.nbrs[s])),
             float(self.nhs[s]),
-            float(self.fc[s]),
+            float(self.fcl[s]),
             float(h == HT.SP),
             float(h == HT.SP2),
             float(h in (HT.SP3, HT.SP3D, HT.SP3D2)),
         ]
 
     def res(self, s: int) -> list[float]:
-        z, nbrs, dbl_o = self.z, self.nbrs, self.dbl_o
+        z, nbrs, dbl_o = self.zl, self.nbrs, self.dbl_o
         co = so2 = po = arom = cn = nitro = cyano = vinyl = 0
         oxy = 1 if z[s] == 8 else 0
         for x in nbrs[s]:
@@ -501,7 +505,7 @@ class _MolData:
         for p, ring in positions.items():
             if p == s:
                 continue
-            if z[p] == 7 and self.nhs[p] == 0 and len(nbrs[p]) == 2 and self.fc[p] == 0:
+            if z[p] == 7 and self.nhs[p] == 0 and len(nbrs[p]) == 2 and self.fcl[p] == 0:
                 aza += 1
             for q in nbrs[p]:
                 if q == s or q in ring:
@@ -518,7 +522,7 @@ class _MolData:
                     acc += 1
                 elif zq == 8 and not dbl_o[q] and not any(q in dbl_o[w] for w in nbrs[q]):
                     don += 1
-                elif zq == 7 and self.fc[q] <= 0 and not self.amide_n[q] and not self.aromatic[q] \
+                elif zq == 7 and self.fcl[q] <= 0 and not self.amide_n[q] and not self.aromatic[q] \
                         and not self.nitro_o[q] and not self.dbl_c[q]:
                     don += 1
         zs = z[s]
