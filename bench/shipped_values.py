@@ -52,6 +52,20 @@ def _key(value: str) -> int:
     return int(value[1:])
 
 
+def library_versions() -> str:
+    """The versions that decide the values besides our code (RDKit perception, LightGBM, NumPy)."""
+    from importlib import metadata
+    return " ".join(f"{name}={metadata.version(name)}" for name in ("rdkit", "lightgbm", "numpy"))
+
+
+def read_reference(path: Path = REFERENCE) -> tuple[pd.DataFrame, str]:
+    """The reference table and the library versions it was written with (its first line)."""
+    with open(path, encoding="utf-8") as fh:
+        first = fh.readline()
+    versions = first[1:].strip() if first.startswith("#") else ""
+    return pd.read_csv(path, comment="#"), versions
+
+
 def differences(now: pd.DataFrame, ref: pd.DataFrame, tol: float = 1e-9) -> list[str]:
     """Human-readable differences between two value tables (empty: the same to ``tol``)."""
     if list(now.columns) != list(ref.columns):
@@ -77,10 +91,15 @@ def main() -> None:
     args = ap.parse_args()
     now = predicted_values(Path(args.mirror))
     if args.write:
-        now.to_csv(REFERENCE, index=False, float_format="%.12g")
+        with open(REFERENCE, "w", encoding="utf-8", newline="") as fh:
+            fh.write(f"# {library_versions()}\n")
+            now.to_csv(fh, index=False, float_format="%.12g")
         print(f"wrote {len(now)} rows to {REFERENCE}")
         return
-    problems = differences(now, pd.read_csv(REFERENCE))
+    ref, versions = read_reference()
+    if versions != library_versions():
+        print(f"note: reference written with {versions}, installed {library_versions()}")
+    problems = differences(now, ref)
     print("\n".join(problems) if problems else f"{len(now)} rows: the same values")
     sys.exit(1 if problems else 0)
 
