@@ -63,7 +63,7 @@ DIAGNOSTIC_NOTE = ("Diagnostic, not a headline figure: the prediction at the sit
                    "to. That site was chosen with the measured value itself, so for molecules with several "
                    "candidate sites this figure is optimistic by construction.")
 SCHEME_LABELS = {"molecule": "grouped by molecule", "scaffold": "grouped by scaffold",
-                 "site_type": "leave one site type out"}
+                 "site_type": "unseen site types (each held out entirely)"}
 N_WORST = 20
 N_TYPES = 20
 CAL_LEVELS = tuple(round(x, 2) for x in np.arange(0.50, 0.951, 0.05))
@@ -410,7 +410,7 @@ def _cv(bundle: ModelBundle) -> str:
     if m is None:
         return _missing("The cross-validation table")
     out = ["<p>Fold schemes of the same job: folds grouped by molecule, grouped by Bemis-Murcko scaffold, and "
-           "leave one site type out. Both baselines run on the same folds and are scored the same value-free way. "
+           "folds that hold whole site types out of training (unseen site types). Both baselines run on the same folds and are scored the same value-free way. "
            "The lowest RMSE of each block is in bold.</p>"]
     header = ["model", "n", "RMSE [95% CI]", "MAE [95% CI]", "R\u00b2 [95% CI]", "within 1", "within 2"]
 
