@@ -49,17 +49,15 @@ RUNS = {"default": ("default.yaml", {}),
 def run_settings(name: str) -> tuple[str, dict]:
     """Config file and overrides of a run name: a name of RUNS, optionally followed by
     ``+KEY=VALUE`` overrides (``published+features.type_prior=false``)."""
-    import yaml
+    from pkasite.pipeline.config import parse_overrides
     base, *extra = name.split("+")
     if base not in RUNS:
         raise SystemExit(f"unknown run {base!r}; runs: {', '.join(RUNS)}")
     config, preset = RUNS[base]
-    for item in extra:
-        key, sep, value = item.partition("=")
-        if not sep:
-            raise SystemExit(f"run {name!r}: expected +KEY=VALUE, got {item!r}")
-        preset = {**preset, key: yaml.safe_load(value)}
-    return config, preset
+    try:
+        return config, {**preset, **parse_overrides(extra)}
+    except ValueError as exc:
+        raise SystemExit(f"run {name!r}: {exc}") from None
 
 
 def one_run(name: str, mirror: Path, overrides: dict, out_json: Path) -> None:
@@ -148,8 +146,8 @@ def main() -> None:
         one_run(args.one, mirror, json.loads(args.overrides), Path(args.out))
         return
     print(f"machine: {os.cpu_count()} cores, load average {os.getloadavg()[0]:.2f} at start")
-    import yaml
-    sets = {k: yaml.safe_load(v) for k, v in (item.split("=", 1) for item in args.sets)}
+    from pkasite.pipeline.config import parse_overrides
+    sets = parse_overrides(args.sets)
     results = []
     if args.ablation:
         sys.path.insert(0, str(Path(__file__).parent))

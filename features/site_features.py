@@ -264,12 +264,10 @@ class _MolData:
         atoms = atoms_of(mol)
         self.atoms = atoms
         z = np.fromiter((a.GetAtomicNum() for a in atoms), dtype=np.int16, count=n)
-        self.z = z
         zl = z.tolist()  # Python ints: scalar lookups on lists are much cheaper than on arrays
         self.zl = zl
         self.aromatic = [a.GetIsAromatic() for a in atoms]
         fc = np.fromiter((a.GetFormalCharge() for a in atoms), dtype=np.float64, count=n)
-        self.fc = fc
         fcl = fc.tolist()
         self.fcl = fcl
         self.nhs = [a.GetTotalNumHs(includeNeighbors=True) for a in atoms]

@@ -10,9 +10,8 @@ import time
 from pathlib import Path
 
 import click
-import yaml
 
-from .config import ConfigError, RunConfig, load_config
+from .config import ConfigError, RunConfig, load_config, parse_overrides
 from .ingest import InputFileError
 from .sources import PullError
 
@@ -36,13 +35,10 @@ def _fail_cleanly(func):
 
 
 def _parse_set(values: tuple[str, ...]) -> dict:
-    overrides = {}
-    for item in values:
-        if "=" not in item:
-            raise click.BadParameter(f"{item!r} is not KEY=VALUE", param_hint="--set")
-        key, value = item.split("=", 1)
-        overrides[key.strip()] = yaml.safe_load(value)
-    return overrides
+    try:
+        return parse_overrides(values)
+    except ValueError as exc:
+        raise click.BadParameter(str(exc), param_hint="--set") from None
 
 
 def _resolve_config(config: str | None, sets: tuple[str, ...], **overrides) -> RunConfig:

@@ -196,6 +196,17 @@ def _validate(model, raw, origin: str):
         raise ConfigError(_format_error(exc, origin)) from None
 
 
+def parse_overrides(items) -> dict:
+    """``KEY=VALUE`` strings (``--set`` items) as config overrides; each value is read as YAML."""
+    overrides = {}
+    for item in items:
+        if "=" not in item:
+            raise ValueError(f"{item!r} is not KEY=VALUE")
+        key, value = item.split("=", 1)
+        overrides[key.strip()] = yaml.safe_load(value)
+    return overrides
+
+
 def _read_yaml(path: Path | None, packaged: str) -> tuple[Any, str]:
     if path is None:
         text = resources.files("pkasite.configs").joinpath(packaged).read_text()
