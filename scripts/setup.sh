@@ -8,9 +8,10 @@ if [ ! -x "$top/.venv/bin/python" ]; then
   "$py" -m venv "$top/.venv"
 fi
 stamp="$top/.venv/.pkasite-installed"
-if [ ! -f "$stamp" ] || [ "$top/pyproject.toml" -nt "$stamp" ]; then
+if [ ! -f "$stamp" ] || [ "$top/pyproject.toml" -nt "$stamp" ] || [ "$top/scripts/constraints.txt" -nt "$stamp" ]; then
   "$top/.venv/bin/python" -m pip install --quiet --upgrade pip
-  "$top/.venv/bin/python" -m pip install --quiet -e "$top[test]"
+  # constraints.txt pins the libraries that decide predicted values (see the file)
+  "$top/.venv/bin/python" -m pip install --quiet -e "$top[test]" -c "$top/scripts/constraints.txt"
   touch "$stamp"
 fi
 # An offline mirror beside the checkout (as on CI) is used when no other is named.

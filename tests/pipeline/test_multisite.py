@@ -32,6 +32,14 @@ def predicted():
     return mols.set_index("id"), sites
 
 
+def _dibase_charge(pk1: float, pk2: float, ph: float = 7.4) -> float:
+    """Mean charge of a base with stepwise constants pk1 > pk2 (pKaH) at ``ph``, from the cumulative
+    protonation constants (textbook speciation): (b1 h + 2 b2 h^2) / (1 + b1 h + b2 h^2)."""
+    b1h = 10.0 ** (pk1 - ph)
+    b2h2 = 10.0 ** (pk1 + pk2 - 2 * ph)
+    return (b1h + 2 * b2h2) / (1 + b1h + b2h2)
+
+
 def _macro(row, low=2.0, high=12.0):
     return [float(x) for x in row["macro_pkas"].split(";") if x and low <= float(x) <= high]
 
@@ -57,8 +65,10 @@ def test_diamines_show_two_coupled_constants(predicted, name, first, second):
     assert len(got) == 2 and got[0] == pytest.approx(first, abs=0.8) and got[1] == pytest.approx(second, abs=1.5)
     # two equivalent amines: the second protonation is weaker by more than the statistical log10(4)
     assert got[0] - got[1] > np.log10(4) + 1.0
-    # mostly the monocation at pH 7.4 (common practice: ionization from Henderson-Hasselbalch)
+    # mostly the monocation at pH 7.4 (common practice: ionization from Henderson-Hasselbalch), and close to
+    # the charge the handbook constants give (ethylenediamine 1.22, piperazine 1.01)
     assert 1.0 < m["charge_at_ph"] < 1.5
+    assert m["charge_at_ph"] == pytest.approx(_dibase_charge(first, second), abs=0.25)
 
 
 def test_citric_acid_three_constants(predicted):
@@ -88,4 +98,6 @@ def test_histamine_two_base_constants(predicted):
     m = predicted[0].loc["histamine"]
     bases = sorted([x for x in _macro(m) if x < 10.5], reverse=True)
     assert bases[:2] == pytest.approx([9.75, 6.04], abs=0.8)
+    # the handbook constants give 1.04 at pH 7.4
     assert 1.0 < m["charge_at_ph"] < 1.3
+    assert m["charge_at_ph"] == pytest.approx(_dibase_charge(9.75, 6.04), abs=0.25)
