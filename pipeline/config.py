@@ -168,6 +168,11 @@ class RunConfig(_Strict):
     train: TrainConfig = Field(default_factory=TrainConfig)
     mlflow: MlflowConfig = Field(default_factory=MlflowConfig)
 
+    def cores(self) -> int:
+        """Cores this run may use (``model.n_jobs``; 0: every core this process may use): for the
+        boosters and for the per-molecule work of curation and features."""
+        return booster_params(self.model).workers()
+
     def with_overrides(self, overrides: dict[str, Any]) -> "RunConfig":
         """Return a copy with dotted keys (``"data.extra"``) replaced, validated again."""
         raw = self.model_dump()

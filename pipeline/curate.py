@@ -9,7 +9,7 @@ from __future__ import annotations
 import math
 import re
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, NamedTuple
 
 import numpy as np
 import pandas as pd
@@ -17,6 +17,7 @@ import pandas as pd
 from pkasite.features.standardize import StructureError, standardize_smiles
 
 from .config import CurationConfig
+from .parallel import map_slices, process_count, split_even
 from .ingest import PER_KIND, WHOLE_COMPOUND
 
 MEASUREMENT_COLUMNS = [
@@ -260,12 +261,14 @@ class CurationResult:
     summary: dict
 
 
-def curate(raw: pd.DataFrame, cfg: CurationConfig) -> CurationResult:
-    """Apply the curation rules to a raw-record table (see :mod:`pkasite.pipeline.ingest`)."""
+def curate(raw: pd.DataFrame, cfg: CurationConfig, processes: int = 1) -> CurationResult:
+    """Apply the curation rules to a raw-record table (see :mod:`pkasite.pipeline.ingest`).
+
+    ``processes``: structures of a large table are standardized in that many processes."""
     raw = raw.reset_index(drop=True)
     numbering_later = _numbering_rule_later(raw)
     kept, rejects = [], []
-    cache: dict[tuple, Any] = {}
+    cache: dict[tuple, Any] = _prefilled_cache(raw, processes)
     for label, row in zip(raw.index, raw.to_dict("records")):
         try:
             kept.append(_curate_row(label, row, cfg, numbering_later, cache))
@@ -350,14 +353,47 @@ def _later_detail(row: dict, stronger: float) -> str:
             f"({why}; curation.first_constant_only=true)")
 
 
+class _Std(NamedTuple):
+    """What curation keeps of a standardized structure."""
+    smiles: str
+    inchikey: str
+    site_atom: int | None
+
+
+def _standardize_keys(keys: list[tuple[str, int | None]]) -> list:
+    """(SMILES, site atom) -> :class:`_Std`, or the :class:`StructureError` it raised."""
+    out = []
+    for smiles, site_atom in keys:
+        try:
+            std = standardize_smiles(smiles, site_atom)
+            out.append(_Std(std.smiles, std.inchikey, std.site_atom))
+        except StructureError as exc:
+            out.append(exc)
+    return out
+
+
+def _prefilled_cache(raw: pd.DataFrame, processes: int) -> dict:
+    """Standardize every distinct (SMILES, site atom) of ``raw`` in ``processes`` processes up front
+    (:func:`parallel.map_slices`); an empty cache when one process is all the work is worth."""
+    keys = []
+    for smiles, value in dict.fromkeys(zip(raw["smiles"], raw["site_atom"])):
+        try:
+            keys.append((smiles, _site_atom(value)))
+        except Reject:
+            continue  # rejected later, row by row, with its reason
+    keys = list(dict.fromkeys(keys))
+    n = process_count(len(keys), processes)
+    if n == 1:
+        return {}
+    slices = [keys[r.start:r.stop] for r in split_even(len(keys), n)]
+    return dict(zip(keys, (v for part in map_slices(_standardize_keys, slices, (), n) for v in part)))
+
+
 def _standardized(smiles: str, site_atom: int | None, cache: dict):
     """Standardize once per (SMILES, site); a failure is cached as the error."""
     key = (smiles, site_atom)
     if key not in cache:
-        try:
-            cache[key] = standardize_smiles(smiles, site_atom)
-        except StructureError as exc:
-            cache[key] = exc
+        cache[key] = _standardize_keys([key])[0]
     return cache[key]
 
 

@@ -103,9 +103,22 @@ def given_atoms(table) -> np.ndarray:
     return pd.to_numeric(table.molecules["site_atom"], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
 
 
+def table_constants(table, site_pred: np.ndarray) -> pd.DataFrame:
+    """:func:`molecule_constants` of a :class:`SiteTable`'s molecules, remembered for the last
+    ``site_pred`` (training asks for the same predictions' constants up to three times, and the
+    microstate enumeration is the costly part)."""
+    pred = np.ascontiguousarray(site_pred, dtype=float)
+    key = (id(table.sites), pred.shape, pred.tobytes())
+    memo = getattr(table, "_constants_memo", None)
+    if memo is None or memo[0] != key:
+        memo = (key, molecule_constants(table.sites, pred, given_atoms(table), table.interactions()))
+        table._constants_memo = memo
+    return memo[1].copy()
+
+
 def constants_by_mol(table, site_pred: np.ndarray) -> np.ndarray:
     """Per mol_id of a :class:`SiteTable`, the molecule's predicted constant (NaN where none)."""
-    c = molecule_constants(table.sites, site_pred, given_atoms(table), table.interactions())
+    c = table_constants(table, site_pred)
     out = np.full(len(table.molecules), np.nan)
     out[c.index.to_numpy()] = c["pred"].to_numpy()
     return out
@@ -129,7 +142,7 @@ def site_known(table) -> np.ndarray:
 def residual_table(table, site_pred: np.ndarray, similarity: np.ndarray) -> pd.DataFrame:
     """Molecule-level and known-site residuals (value-free predictions minus values), see module doc."""
     sites = table.sites
-    c = molecule_constants(sites, site_pred, given_atoms(table), table.interactions())
+    c = table_constants(table, site_pred)
     rows = c["row"].to_numpy()
     labels = sites["label"].to_numpy()
     mol = pd.DataFrame({"level": "molecule", "mol_id": c.index.to_numpy(), "kind": sites["kind"].to_numpy()[rows],

@@ -32,6 +32,7 @@ class SiteTable:
     rejects: pd.DataFrame        # measurements without a usable site, with a reason
     mols: list                   # RDKit molecules, by mol_id
     _interactions: dict | None = None
+    _constants_memo: tuple | None = None  # evaluation.table_constants: (key, constants) of the last predictions
 
     def interactions(self) -> dict:
         """Per mol_id: (site rows, pair matrix W, exclusive pairs) of the microstate model, for molecules

@@ -68,7 +68,7 @@ def curate_step(cfg: RunConfig, files: list[PulledFile], out_dir: Path, fmt: str
                 registry: Registry | None = None, log: Log = _quiet) -> CurateOutputs:
     """Curate pulled + in-house data and write measurements, rejects and summary to ``out_dir``."""
     raw = read_raw(files, cfg, registry)
-    result = curate(raw, cfg.curation)
+    result = curate(raw, cfg.curation, processes=cfg.cores())
     out_dir = Path(out_dir)
     m = write_table(result.measurements, out_dir / f"measurements.{fmt}")
     r = write_table(result.rejects, out_dir / f"rejects.{fmt}")
