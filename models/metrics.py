@@ -27,18 +27,21 @@ def bootstrap_metrics(y, pred, n_boot: int = 1000, seed: int = 0, level: float =
     if len(y) < 2:
         return out
     rng = np.random.default_rng(seed)
-    idx = rng.integers(0, len(y), size=(n_boot, len(y)))
-    err = (pred - y)[idx]      # the same values as pred[idx] - y[idx], one gather instead of two
-    yb = y[idx]
-    sq = np.sum(err * err, axis=1)
-    dev = yb - yb.mean(axis=1, keepdims=True)
+    n = len(y)
+    idx = rng.integers(0, n, size=(n_boot, n))
+    # resample r draws row i counts[r, i] times: every sum over a resample is one product with the counts
+    counts = np.bincount((np.arange(n_boot)[:, None] * n + idx).ravel(), minlength=n_boot * n)
+    counts = counts.reshape(n_boot, n).astype(float)
+    err = pred - y
     ae = np.abs(err)
+    sums = counts @ np.column_stack([err * err, ae, ae <= 1.0, ae <= 2.0, y, y * y])
+    sq, y_sum, y_sq = sums[:, 0], sums[:, 4], sums[:, 5]
     samples = {
-        "rmse": np.sqrt(sq / len(y)),
-        "mae": np.mean(ae, axis=1),
-        "r2": 1 - sq / np.maximum(np.sum(dev * dev, axis=1), 1e-12),
-        "within_1": np.mean(ae <= 1.0, axis=1),
-        "within_2": np.mean(ae <= 2.0, axis=1),
+        "rmse": np.sqrt(sq / n),
+        "mae": sums[:, 1] / n,
+        "r2": 1 - sq / np.maximum(y_sq - y_sum * y_sum / n, 1e-12),
+        "within_1": sums[:, 2] / n,
+        "within_2": sums[:, 3] / n,
     }
     alpha = (1 - level) / 2
     for name, vals in samples.items():

@@ -59,10 +59,6 @@ def predict_frame(bundle, model_input: pd.DataFrame) -> pd.DataFrame:
     return jsonable(mols)
 
 
-def predict_frame_from_path(path: Path, model_input: pd.DataFrame) -> pd.DataFrame:
-    return predict_frame(load_bundle(path, with_tables=False), model_input)
-
-
 class SitePkaModel(mlflow.pyfunc.PythonModel):
     """pyfunc wrapper: the bundle folder travels as the artifact ``bundle``; hashes are checked on load.
 

@@ -67,14 +67,14 @@ def code_version() -> str:
 
 
 def log_training_run(cfg: RunConfig, metrics: dict, artifacts: list[Path], bundle_path: Path,
-                     tags: dict, input_example: pd.DataFrame) -> dict:
-    """Log params, metrics, artifacts and the pyfunc model; register it with alias ``candidate``."""
+                     tags: dict, input_example: pd.DataFrame, output_example: pd.DataFrame) -> dict:
+    """Log params, metrics, artifacts and the pyfunc model; register it with alias ``candidate``.
+
+    ``output_example`` is the bundle's answer to ``input_example`` (it sets the model signature)."""
     _quiet_mlflow()
     import mlflow
     from mlflow.models import infer_signature
     from mlflow.tracking import MlflowClient
-
-    from .pyfunc import predict_frame_from_path
 
     mlflow.set_tracking_uri(cfg.mlflow.tracking_uri)
     mlflow.set_experiment(cfg.name)
@@ -86,7 +86,6 @@ def log_training_run(cfg: RunConfig, metrics: dict, artifacts: list[Path], bundl
         mlflow.log_metrics(clean)
         for path in artifacts:
             mlflow.log_artifact(str(path))
-        output_example = predict_frame_from_path(bundle_path, input_example)
         signature = infer_signature(input_example, output_example)
         info = mlflow.pyfunc.log_model(
             name="model", python_model=str(Path(__file__).with_name("pyfunc_model.py")),

@@ -288,7 +288,8 @@ def reassign_labels(prep: Prepared, cfg: RunConfig, clock: StageClock | None = N
     """
     clock = clock or StageClock()
     sites = prep.table.sites
-    splits = make_splits(prep, "molecule", cfg)
+    folds = cfg.model.assignment_folds or cfg.cv.folds
+    splits = make_splits(prep, "molecule", cfg.with_overrides({"cv.folds": folds}) if folds != cfg.cv.folds else cfg)
     n_mols = len(prep.table.molecules)
     moved_per_round = []
     for rnd in range(cfg.model.assignment_rounds):

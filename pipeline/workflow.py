@@ -268,10 +268,12 @@ def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_
     tracked = None
     if cfg.mlflow.enabled:
         with clock("mlflow logging") as stage:
+            from .pyfunc import predict_frame  # imports MLflow
             example = pd.DataFrame({"id": ["example-1", "example-2"], "smiles": ["OC(=O)c1ccccc1", "CN1CCCCC1"]})
             tracked = log_training_run(cfg, metrics, [cv_metrics, cv_preds, summary_path, report, *extra_artifacts],
                                        bundle_path, {"dataset_sha256": card["dataset_sha256"],
-                                                     "code_version": card["code_version"]}, example)
+                                                     "code_version": card["code_version"]},
+                                       example, predict_frame(bundle, example))
             stage.note = f"run {tracked['run_id']}; registered version {tracked['version']} (alias candidate)"
     log(f"training finished in {time.monotonic() - t0:.0f} s; bundle {bundle_path}")
     return TrainOutputs(bundle_path, cv_metrics, cv_preds, report, metrics, tracked, clock)

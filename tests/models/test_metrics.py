@@ -33,3 +33,21 @@ def test_paired_difference_detects_the_better_model():
     good, bad = y + rng.normal(0, 0.5, 500), y + rng.normal(0, 1.5, 500)
     d = paired_bootstrap_diff(y, bad, good)
     assert d["rmse_diff"] < 0 and d["rmse_diff_high"] < 0
+
+
+def test_bootstrap_intervals_equal_resampling_row_by_row():
+    """The counts-matrix shortcut gives the intervals of drawing each resample and scoring it directly."""
+    rng = np.random.default_rng(3)
+    y = rng.uniform(0, 14, 300)
+    pred = y + rng.normal(0, 1.2, 300)
+    got = bootstrap_metrics(y, pred, n_boot=400, seed=7)
+    idx = np.random.default_rng(7).integers(0, 300, size=(400, 300))
+    direct = {name: [] for name in ("rmse", "mae", "r2", "within_1", "within_2")}
+    for rows in idx:
+        m = point_metrics(y[rows], pred[rows])
+        for name in direct:
+            direct[name].append(m[name])
+    for name, vals in direct.items():
+        low, high = np.quantile(vals, [0.025, 0.975])
+        assert got[f"{name}_low"] == pytest.approx(low, abs=1e-9)
+        assert got[f"{name}_high"] == pytest.approx(high, abs=1e-9)
