@@ -103,9 +103,9 @@ class _ModelSettings(_Strict):
     microstate_targets: bool = True  # labeled sites train on value + (site - molecule constant) offsets
     assignment_rounds: int = 3       # at most this many label re-assignment rounds (0: keep catalog priors)
     assignment_stop_fraction: float = Field(0.01, ge=0, le=1)  # stop once at most this share of labels moves
-    assignment_folds: int | None = Field(None, ge=2)  # molecule-grouped folds of the rounds (None: cv.folds)
-    assignment_n_estimators: int | None = 250      # cheaper boosters for the assignment rounds
-    assignment_learning_rate: float | None = 0.1   # (None: the main model's settings)
+    assignment_folds: int | None = Field(3, ge=2)  # molecule-grouped folds of the rounds (None: cv.folds)
+    assignment_n_estimators: int | None = 120      # cheaper boosters for the assignment rounds
+    assignment_learning_rate: float | None = 0.2   # (None: the main model's settings)
     assignment_margin: float = 1.0   # a label moves only to a site predicted stronger by more than this
     assignment_tolerance: float = 2.0  # sites predicted (or, by prior, ranged) this close to the value compete
 
