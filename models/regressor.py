@@ -102,18 +102,18 @@ def censored_squared_objective(y: np.ndarray, bound: np.ndarray):
 
 
 _fits_lock = threading.Lock()
-_fits_done = 0
+_fits_by_caller: dict[int, int] = {}
 
 
 def boosters_fitted() -> int:
-    """Boosters fitted by this process so far (a counter for timing reports)."""
-    return _fits_done
+    """Boosters fitted so far by :func:`fit_many` calls made from this thread (a counter for timing
+    reports; work started from another thread, such as a fit in the background, counts there)."""
+    return _fits_by_caller.get(threading.get_ident(), 0)
 
 
 def _train_booster(X: np.ndarray, rows: np.ndarray, y: np.ndarray, bound: np.ndarray | None,
-                   params: dict) -> tuple["lgb.Booster", float]:
+                   params: dict, caller: int) -> tuple["lgb.Booster", float]:
     """One booster and its offset (the start score, added to every prediction)."""
-    global _fits_done
     yy = np.asarray(y[rows], float)
     if bound is None or not np.any(bound[rows]):
         data = _lgb().Dataset(np.asarray(X[rows], np.float32), yy, free_raw_data=True, params={"verbosity": -1})
@@ -125,7 +125,7 @@ def _train_booster(X: np.ndarray, rows: np.ndarray, y: np.ndarray, bound: np.nda
                            free_raw_data=True, params={"verbosity": -1})
         booster = _lgb().train({**params, "objective": censored_squared_objective(yy, b)}, data)
     with _fits_lock:
-        _fits_done += 1
+        _fits_by_caller[caller] = _fits_by_caller.get(caller, 0) + 1
     return booster, offset
 
 
@@ -150,10 +150,11 @@ def fit_many(jobs: list[FitJob], params: BoosterParams, seed: int = 42,
     lgb_params = params.lgb_params(seed, threads)
     order = sorted(range(len(tasks)), key=lambda i: -len(tasks[i][2]))
     boosters: list = [None] * len(tasks)
+    caller = threading.get_ident()
 
     def run(i: int) -> None:
         j, _, sel = tasks[i]
-        boosters[i] = _train_booster(jobs[j].X, sel, jobs[j].y, jobs[j].bound, lgb_params)
+        boosters[i] = _train_booster(jobs[j].X, sel, jobs[j].y, jobs[j].bound, lgb_params, caller)
 
     if workers == 1:
         for i in order:

@@ -39,7 +39,7 @@ class StageClock:
         t0, f0 = time.monotonic(), boosters_fitted()
         yield rec
         rec.seconds = time.monotonic() - t0
-        rec.fits = boosters_fitted() - f0
+        rec.fits += boosters_fitted() - f0  # a stage may add fits made for it in another thread
         self.records.append(rec)
         fits = f", {rec.fits} booster fits" if rec.fits else ""
         self.log(f"[{self.elapsed():6.1f} s] {name}" + (f": {rec.note}" if rec.note else "")

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import hashlib
 import time
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable
@@ -190,6 +191,14 @@ def mlflow_metrics(cv_metrics: pd.DataFrame, coverage: pd.DataFrame, heldout: di
     return metrics
 
 
+def _fit_counted(fit, *args):
+    """``fit(*args)`` and the number of boosters it fitted (counted in the thread that runs it)."""
+    from pkasite.models.regressor import boosters_fitted
+    before = boosters_fitted()
+    out = fit(*args)
+    return out, boosters_fitted() - before
+
+
 def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_artifacts: list[Path] = (),
                registry: Registry | None = None, curation: dict | None = None, log: Log = _quiet,
                clock: StageClock | None = None) -> TrainOutputs:
@@ -216,6 +225,11 @@ def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_
         prep = T.prepare(fit_meas, cfg)
         stage.note = prep.summary()
     moved = T.reassign_labels(prep, cfg, clock)
+    # The final model needs only the assigned labels: it fits in the background while cross-validation
+    # runs, on the core that its single-threaded stretches (predictions, microstates, metrics) leave idle.
+    background = ThreadPoolExecutor(1, thread_name_prefix="pkasite-final")
+    final_fit = background.submit(_fit_counted, T.fit_regressor, prep, np.arange(len(prep.table.molecules)), cfg)
+    background.shutdown(wait=False)  # the fit goes on; its result is collected below
     cv = T.cross_validate(prep, cfg, clock)
     with clock("calibration + domain") as stage:
         levels = cfg.domain.interval_levels
@@ -223,8 +237,9 @@ def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_
         calibrator = E.fit_calibrator(cv.residuals, "site", levels)
         mol_calibrator = E.fit_calibrator(cv.residuals, "molecule", levels)
         stage.note = f"domain threshold {threshold:.2f} (value-free known-site residuals)"
-    with clock("final fit"):
-        final = T.fit_regressor(prep, np.arange(len(prep.table.molecules)), cfg)
+    with clock("final fit") as stage:
+        final, stage.fits = final_fit.result()
+        stage.note = "started after label assignment, alongside cross-validation; this is the wait"
     lab = prep.sites["labeled"].to_numpy()
     kinds = prep.sites["kind"].to_numpy()
     train_bits = {k: prep.bits[lab & (kinds == k)] for k in ("acid", "base")}

@@ -69,3 +69,14 @@ def test_censored_rows_push_only_where_the_prediction_crosses_the_bound():
     pulled = SiteRegressor(params=params).fit(X, high, kinds, bound=bound).predict(grid, np.full(19, "acid"))
     right, left = grid[:, 0] > 6, grid[:, 0] < 4
     assert np.all(pulled[right] > base[right] + 0.5) and pulled[left] == pytest.approx(base[left], abs=0.3)
+
+
+def test_fits_started_from_another_thread_count_there():
+    """Stage timings count the boosters a stage fits; a fit running in the background is not theirs."""
+    from concurrent.futures import ThreadPoolExecutor
+    X, y, kinds = _data()
+    before = boosters_fitted()
+    with ThreadPoolExecutor(1) as pool:
+        in_thread = pool.submit(lambda: (fit_many([FitJob(X, y, kinds)], PARAMS), boosters_fitted())[1]).result()
+    assert in_thread >= 2  # acid and base boosters, counted in the thread that asked for them
+    assert boosters_fitted() == before
