@@ -29,7 +29,7 @@ if TYPE_CHECKING:
 KINDS = ("acid", "base")
 
 
-def _lgb():
+def lightgbm_module():
     """LightGBM, imported when first used: it pulls in scikit-learn and SciPy (over 2 s and ~90 MB), which
     commands that never fit or load a booster (--help, pull, curate, reading a batch) should not pay."""
     import lightgbm
@@ -116,14 +116,14 @@ def _train_booster(X: np.ndarray, rows: np.ndarray, y: np.ndarray, bound: np.nda
     """One booster and its offset (the start score, added to every prediction)."""
     yy = np.asarray(y[rows], float)
     if bound is None or not np.any(bound[rows]):
-        data = _lgb().Dataset(np.asarray(X[rows], np.float32), yy, free_raw_data=True, params={"verbosity": -1})
-        booster, offset = _lgb().train(params, data), 0.0
+        data = lightgbm_module().Dataset(np.asarray(X[rows], np.float32), yy, free_raw_data=True, params={"verbosity": -1})
+        booster, offset = lightgbm_module().train(params, data), 0.0
     else:
         b = np.asarray(bound[rows])
         offset = float(np.mean(yy[b == 0])) if np.any(b == 0) else float(np.mean(yy))
-        data = _lgb().Dataset(np.asarray(X[rows], np.float32), yy, init_score=np.full(len(rows), offset),
+        data = lightgbm_module().Dataset(np.asarray(X[rows], np.float32), yy, init_score=np.full(len(rows), offset),
                            free_raw_data=True, params={"verbosity": -1})
-        booster = _lgb().train({**params, "objective": censored_squared_objective(yy, b)}, data)
+        booster = lightgbm_module().train({**params, "objective": censored_squared_objective(yy, b)}, data)
     with _fits_lock:
         _fits_by_caller[caller] = _fits_by_caller.get(caller, 0) + 1
     return booster, offset
@@ -222,6 +222,6 @@ class SiteRegressor:
     def from_strings(cls, models: dict[str, str], per_kind: bool, seed: int = 42,
                      params: BoosterParams | None = None, offsets: dict | None = None) -> "SiteRegressor":
         reg = cls(params=params or BoosterParams(), per_kind=per_kind, seed=seed)
-        reg.boosters_ = {k: _lgb().Booster(model_str=s) for k, s in models.items()}
+        reg.boosters_ = {k: lightgbm_module().Booster(model_str=s) for k, s in models.items()}
         reg.offsets_ = {k: float(v) for k, v in (offsets or {}).items()}
         return reg

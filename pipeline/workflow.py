@@ -6,6 +6,7 @@ explicit paths and returns what it produced.
 from __future__ import annotations
 
 import hashlib
+import threading
 import time
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
@@ -209,6 +210,7 @@ def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_
     """
     from pkasite.features.sites import load_catalog
     from pkasite.models.microstates import default_interaction_model
+    from pkasite.models.regressor import lightgbm_module
 
     from . import evaluation as E
     from . import train as T
@@ -221,6 +223,9 @@ def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_
     t0 = time.monotonic()
     out_dir = Path(out_dir)
     fit_meas = T.split_filter(measurements, cfg.train.fit_splits)
+    # LightGBM (with scikit-learn and SciPy, about a second) loads while this process waits on the
+    # feature workers, instead of at the first fit
+    threading.Thread(target=lightgbm_module, name="pkasite-import", daemon=True).start()
     with clock("site table + features") as stage:
         prep = T.prepare(fit_meas, cfg)
         stage.note = prep.summary()
