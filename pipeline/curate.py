@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import math
 import re
+import statistics
 from dataclasses import dataclass
 from typing import Any, NamedTuple
 
@@ -206,7 +207,7 @@ def _compounds(labels, sources, kinds, keys, inchikeys) -> dict:
 
 
 def _median(members: list[tuple]) -> float:
-    return float(np.median([value for _, value in members]))
+    return float(statistics.median(value for _, value in members))  # np.median costs 30 us per tiny list
 
 
 def _strongest_first(constants: dict, kind: str, scheme: str) -> list[tuple]:
@@ -449,8 +450,8 @@ def _aggregate(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFrame, l
         t = [r["temperature_c"] for r in grp if not pd.isna(r["temperature_c"])]
         out.append({
             "record_id": f"{first['source']}:{first['record_id']}", "smiles": first["smiles"],
-            "inchikey": first["inchikey"], "kind": kind, "pka": float(np.median(values)), "n": len(grp),
-            "spread": spread, "temperature_c": float(np.median(t)) if t else float("nan"),
+            "inchikey": first["inchikey"], "kind": kind, "pka": float(statistics.median(values)), "n": len(grp),
+            "spread": spread, "temperature_c": float(statistics.median(t)) if t else float("nan"),
             "method": _joined(r["method"] for r in grp), "source": _joined(r["source"] for r in grp),
             "licence": _joined(r["licence"] for r in grp),
             "site_atom": None if site_key < 0 else int(site_key),

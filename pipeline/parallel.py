@@ -10,7 +10,10 @@ pass whatever the number of processes.
 from __future__ import annotations
 
 import multiprocessing
+import os
+import sys
 from concurrent.futures import ProcessPoolExecutor
+from concurrent.futures.process import BrokenProcessPool
 from typing import Callable, Sequence
 
 SLICES_PER_PROCESS = 16  # small slices: the last ones in flight when the two ends meet are short
@@ -27,7 +30,7 @@ def map_slices(fn: Callable, slices: Sequence, args: tuple = (), processes: int 
 
     ``fn`` must be a module-level function; its arguments and results must pickle.
     """
-    if processes <= 1 or len(slices) <= 1:
+    if processes <= 1 or len(slices) <= 1 or not can_spawn():
         return [fn(s, *args) for s in slices]
     out: list = [None] * len(slices)
     done = [False] * len(slices)
@@ -41,8 +44,19 @@ def map_slices(fn: Callable, slices: Sequence, args: tuple = (), processes: int 
             out[i], done[i] = fn(slices[i], *args), True
         for i, fut in futures.items():
             if not done[i]:
-                out[i] = fut.result()
+                try:
+                    out[i] = fut.result()
+                except BrokenProcessPool:  # a worker died (killed, out of memory): its slices are done here
+                    out[i] = fn(slices[i], *args)
     return out
+
+
+def can_spawn() -> bool:
+    """Whether a spawned worker can start: it imports the main script again, which is impossible when
+    the program came from standard input.  (Scripts that call the training functions need the usual
+    ``if __name__ == "__main__":`` guard of any code that starts processes.)"""
+    path = getattr(sys.modules.get("__main__"), "__file__", None)
+    return path is None or os.path.exists(path)
 
 
 def split_even(n_items: int, processes: int) -> list[range]:

@@ -53,3 +53,12 @@ def test_curation_in_two_processes_equals_one(mirror, tmp_path, monkeypatch):
     pd.testing.assert_frame_equal(one.rejects, two.rejects)
     assert one.summary == two.summary
     assert "structure_invalid" in set(two.rejects["reason"])
+
+
+def test_work_stays_in_this_process_when_no_worker_can_start(monkeypatch):
+    """A program read from standard input cannot be imported again by a spawned worker: no pool then."""
+    import sys
+    monkeypatch.setattr(sys.modules["__main__"], "__file__", "<stdin>", raising=False)
+    assert not parallel.can_spawn()
+    slices = [[i, i + 1] for i in range(10)]
+    assert parallel.map_slices(sum, slices, (), processes=2) == [2 * i + 1 for i in range(10)]
