@@ -376,13 +376,13 @@ def _standardize_keys(keys: list[tuple[str, int | None]]) -> list:
 def _prefilled_cache(raw: pd.DataFrame, processes: int) -> dict:
     """Standardize every distinct (SMILES, site atom) of ``raw`` in ``processes`` processes up front
     (:func:`parallel.map_slices`); an empty cache when one process is all the work is worth."""
-    keys = []
-    for smiles, value in dict.fromkeys(zip(raw["smiles"], raw["site_atom"])):
+    distinct: dict = {}
+    for smiles, value in zip(raw["smiles"], raw["site_atom"]):
         try:
-            keys.append((smiles, _site_atom(value)))
+            distinct[(smiles, _site_atom(value))] = None
         except Reject:
             continue  # rejected later, row by row, with its reason
-    keys = list(dict.fromkeys(keys))
+    keys = list(distinct)
     n = process_count(len(keys), processes)
     if n == 1:
         return {}

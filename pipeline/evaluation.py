@@ -109,7 +109,7 @@ def table_constants(table, site_pred: np.ndarray) -> pd.DataFrame:
     microstate enumeration is the costly part)."""
     pred = np.ascontiguousarray(site_pred, dtype=float)
     key = (id(table.sites), pred.shape, pred.tobytes())
-    memo = getattr(table, "_constants_memo", None)
+    memo = table._constants_memo
     if memo is None or memo[0] != key:
         memo = (key, molecule_constants(table.sites, pred, given_atoms(table), table.interactions()))
         table._constants_memo = memo

@@ -12,7 +12,6 @@ from dataclasses import dataclass, field, replace
 
 import numpy as np
 import pandas as pd
-from rdkit import Chem
 
 from pkasite.features.fingerprints import mol_fingerprint_counts, site_neighbourhood_bits
 from pkasite.features.site_features import FeatureSettings
@@ -58,25 +57,25 @@ class Prepared:
 
 
 def _prepare_slice(measurements: pd.DataFrame, settings: FeatureSettings, site_types: list[str]):
-    """Site table (molecules as RDKit binaries, so that it pickles), site features, neighbourhood bits
-    and molecule fingerprints of some measurements."""
+    """Site table, site features, neighbourhood bits and molecule fingerprints of some measurements
+    (the table's parts as a tuple: RDKit molecules pickle on their own when a worker sends them back)."""
     table = build_site_table(measurements)
     X = site_matrix(table, settings, site_types)
     bits = np.stack([site_neighbourhood_bits(table.mols[m], int(a)) for m, a in
                      table.sites[["mol_id", "atom"]].itertuples(index=False)]) if len(table.sites) else np.zeros((0, 1024), np.uint8)
     mol_X = np.stack([mol_fingerprint_counts(m, 2, 2048) for m in table.mols]) if table.mols else np.zeros((0, 2048))
-    return (table.sites, table.molecules, table.rejects, [m.ToBinary() for m in table.mols]), X, bits, mol_X
+    return (table.sites, table.molecules, table.rejects, table.mols), X, bits, mol_X
 
 
 def _joined(parts: list) -> tuple[SiteTable, np.ndarray, np.ndarray, np.ndarray]:
     """One site table and its arrays from consecutive slices (``mol_id`` renumbered in order)."""
     sites, molecules, rejects, mols, offset = [], [], [], [], 0
-    for (s, m, r, binaries), *_ in parts:
+    for (s, m, r, part_mols), *_ in parts:
         sites.append(s.assign(mol_id=s["mol_id"].to_numpy() + offset))
         offset += len(m)
         molecules += [m] if len(m) else []
         rejects += [r] if len(r) else []
-        mols += [Chem.Mol(b) for b in binaries]
+        mols += part_mols
     first = parts[0][0]
     table = SiteTable(pd.concat(sites, ignore_index=True),
                       pd.concat(molecules, ignore_index=True) if molecules else first[1],
@@ -95,24 +94,6 @@ def prepare(measurements: pd.DataFrame, cfg: RunConfig) -> Prepared:
     parts = map_slices(_prepare_slice, slices, (settings, site_types), n)
     table, X, bits, mol_X = _joined(parts)
     return Prepared(table, X, bits, mol_X, site_types, settings)
-    # a few slices per process, so that the work evens out although the workers start late (imports)
-    slices = [measurements.iloc[ix] for ix in np.array_split(np.arange(len(measurements)), 16 * n)]
-    parts: list = [None] * len(slices)
-    # spawn, not fork: a forked child inherits LightGBM's OpenMP state and can deadlock
-    with ProcessPoolExecutor(n - 1, mp_context=multiprocessing.get_context("spawn")) as pool:
-        futures = {i: pool.submit(_prepare_part_in_worker, part, settings, site_types)
-                   for i, part in enumerate(slices) if i > 0}
-        parts[0] = _prepare_part(slices[0], settings, site_types)
-        for i in reversed(futures):  # the workers take slices from the front, this process from the back
-            if not futures[i].cancel():
-                break
-            parts[i] = _prepare_part(slices[i], settings, site_types)
-        for i, fut in futures.items():
-            if parts[i] is None:
-                (sites, molecules, rejects, binaries), X, bits, mol_X = fut.result()
-                parts[i] = (SiteTable(sites, molecules, rejects, [Chem.Mol(b) for b in binaries]), X, bits, mol_X)
-    table, X, bits, mol_X = _joined(parts)
-    return Prepared(table, X, bits, mol_X, site_types, settings)
 
 
 # ----------------------------------------------------------------------------- molecule labels
@@ -126,16 +107,19 @@ def _labels(prep: Prepared) -> pd.DataFrame:
 
 # ----------------------------------------------------------------------------- folds
 
-def make_splits(prep: Prepared, scheme: str, cfg: RunConfig) -> list[tuple[str, np.ndarray, np.ndarray]]:
-    """Splits over mol_id: (name, train mol_ids, test mol_ids)."""
+def make_splits(prep: Prepared, scheme: str, cfg: RunConfig,
+                folds: int | None = None) -> list[tuple[str, np.ndarray, np.ndarray]]:
+    """Splits over mol_id: (name, train mol_ids, test mol_ids); ``folds`` (default ``cv.folds``) for the
+    molecule and scaffold schemes."""
+    folds = folds or cfg.cv.folds
     mols = _labels(prep)
     ids = mols["mol_id"].to_numpy()
     if scheme == "molecule":
         groups = mols["inchikey"].str[:14].to_numpy()  # connectivity layer: tautomers/charges stay together
-        return [(f"fold{i}", ids[tr], ids[te]) for i, (tr, te) in enumerate(group_kfold(groups, cfg.cv.folds, cfg.seed))]
+        return [(f"fold{i}", ids[tr], ids[te]) for i, (tr, te) in enumerate(group_kfold(groups, folds, cfg.seed))]
     if scheme == "scaffold":
         groups = np.array([murcko_scaffold(s) for s in mols["smiles"]])
-        return [(f"fold{i}", ids[tr], ids[te]) for i, (tr, te) in enumerate(group_kfold(groups, cfg.cv.folds, cfg.seed))]
+        return [(f"fold{i}", ids[tr], ids[te]) for i, (tr, te) in enumerate(group_kfold(groups, folds, cfg.seed))]
     if scheme == "site_type":
         return [(name, ids[tr], ids[te]) for name, tr, te in
                 unseen_group_folds(mols["site_type"].to_numpy(), cfg.cv.site_type_min_count,
@@ -288,8 +272,7 @@ def reassign_labels(prep: Prepared, cfg: RunConfig, clock: StageClock | None = N
     """
     clock = clock or StageClock()
     sites = prep.table.sites
-    folds = cfg.model.assignment_folds or cfg.cv.folds
-    splits = make_splits(prep, "molecule", cfg.with_overrides({"cv.folds": folds}) if folds != cfg.cv.folds else cfg)
+    splits = make_splits(prep, "molecule", cfg, folds=cfg.model.assignment_folds)
     n_mols = len(prep.table.molecules)
     moved_per_round = []
     for rnd in range(cfg.model.assignment_rounds):
