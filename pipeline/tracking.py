@@ -66,6 +66,25 @@ def code_version() -> str:
     return f"{version}+{commit}" if commit else version
 
 
+def prepare_tracking(tracking_uri: str, experiment: str) -> None:
+    """Import MLflow and open (on first use, create) the tracking store and the run's experiment.
+
+    Training calls this in a background thread while cross-validation keeps the cores busy and this
+    process waits: the import and a new store's schema migrations take about 3 s of one core that would
+    otherwise come after the last fit.  Any failure is left for :func:`log_training_run` to report.
+    """
+    try:
+        _quiet_mlflow()
+        import mlflow.pyfunc  # noqa: F401  (what log_training_run and the signature example need)
+        from mlflow.models import infer_signature  # noqa: F401
+        from mlflow.tracking import MlflowClient
+        client = MlflowClient(tracking_uri=tracking_uri)
+        if client.get_experiment_by_name(experiment) is None:
+            client.create_experiment(experiment)
+    except Exception:  # noqa: BLE001  (reported by log_training_run, which does the same steps again)
+        pass
+
+
 def log_training_run(cfg: RunConfig, metrics: dict, artifacts: list[Path], bundle_path: Path,
                      tags: dict, input_example: pd.DataFrame, output_example: pd.DataFrame) -> dict:
     """Log params, metrics, artifacts and the pyfunc model; register it with alias ``candidate``.

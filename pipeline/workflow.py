@@ -235,6 +235,10 @@ def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_
     background = ThreadPoolExecutor(1, thread_name_prefix="pkasite-final")
     final_fit = background.submit(_fit_counted, T.fit_regressor, prep, np.arange(len(prep.table.molecules)), cfg)
     background.shutdown(wait=False)  # the fit goes on; its result is collected below
+    if cfg.mlflow.enabled:  # MLflow loads and opens its store while the folds fit (see prepare_tracking)
+        from .tracking import prepare_tracking
+        threading.Thread(target=prepare_tracking, args=(cfg.mlflow.tracking_uri, cfg.name),
+                         name="pkasite-mlflow", daemon=True).start()
     cv = T.cross_validate(prep, cfg, clock)
     with clock("calibration + domain") as stage:
         levels = cfg.domain.interval_levels
