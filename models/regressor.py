@@ -12,6 +12,10 @@ other base site at or below it).  Such rows carry a one-sided bound instead of a
 (``FitJob.bound``): the squared error counts only when the prediction crosses the bound (a
 censored, Tobit-like squared loss).  This teaches the model the sites that carry no label,
 which is what decides the molecule's predicted constant when it has several sites.
+
+Loss.  Huber's (``BoosterParams.huber_delta``, default 2 log units): squared within the delta, linear
+beyond it.  Compiled constants include values attached to the wrong site of a molecule and plain
+misprints; under squared error such a label pulls its leaf by its full, large residual.
 """
 from __future__ import annotations
 
@@ -53,6 +57,8 @@ class BoosterParams:
     colsample_bytree: float = 0.4
     subsample: float = 0.8
     reg_lambda: float = 1.0
+    huber_delta: float = 2.0  # > 0: residuals beyond this many log units pull with a constant force (Huber);
+                              # 0: squared error (measured: features/FEATURES.md)
     n_jobs: int = 0          # cores for fitting; 0: every core this process may use
 
     def workers(self) -> int:
@@ -86,14 +92,21 @@ class FitJob:
     bound: np.ndarray | None = None
 
 
-def censored_squared_objective(y: np.ndarray, bound: np.ndarray):
-    """LightGBM objective: squared error on labels, and on bounds only where the prediction crosses them."""
+def censored_squared_objective(y: np.ndarray, bound: np.ndarray, huber_delta: float = 0.0):
+    """LightGBM objective: squared error on labels, and on bounds only where the prediction crosses them.
+
+    With ``huber_delta`` > 0 the loss is Huber's: a residual beyond the delta pulls with the force of
+    the delta (gradient clipped, unit hessian, as LightGBM's own ``huber`` objective), so a value
+    attached to the wrong site or misreported moves its leaf less.
+    """
     y = np.asarray(y, float)
     bound = np.asarray(bound, float)
     exact = bound == 0
 
     def objective(pred: np.ndarray, _data) -> tuple[np.ndarray, np.ndarray]:
         r = pred - y
+        if huber_delta > 0:
+            r = np.clip(r, -huber_delta, huber_delta)
         active = exact | (bound * r < 0)
         # inactive rows get a tiny hessian so that a leaf of only satisfied bounds stays at zero
         return np.where(active, r, 0.0), np.where(active, 1.0, 1e-3)
@@ -112,18 +125,19 @@ def boosters_fitted() -> int:
 
 
 def _train_booster(X: np.ndarray, rows: np.ndarray, y: np.ndarray, bound: np.ndarray | None,
-                   params: dict, caller: int) -> tuple["lgb.Booster", float]:
+                   params: dict, caller: int, huber_delta: float = 0.0) -> tuple["lgb.Booster", float]:
     """One booster and its offset (the start score, added to every prediction)."""
     yy = np.asarray(y[rows], float)
-    if bound is None or not np.any(bound[rows]):
+    if huber_delta <= 0 and (bound is None or not np.any(bound[rows])):
         data = lightgbm_module().Dataset(np.asarray(X[rows], np.float32), yy, free_raw_data=True, params={"verbosity": -1})
         booster, offset = lightgbm_module().train(params, data), 0.0
     else:
-        b = np.asarray(bound[rows])
+        b = np.asarray(bound[rows]) if bound is not None else np.zeros(len(rows), np.int8)
         offset = float(np.mean(yy[b == 0])) if np.any(b == 0) else float(np.mean(yy))
         data = lightgbm_module().Dataset(np.asarray(X[rows], np.float32), yy, init_score=np.full(len(rows), offset),
                            free_raw_data=True, params={"verbosity": -1})
-        booster = lightgbm_module().train({**params, "objective": censored_squared_objective(yy, b)}, data)
+        booster = lightgbm_module().train({**params, "objective": censored_squared_objective(yy, b, huber_delta)},
+                                          data)
     with _fits_lock:
         _fits_by_caller[caller] = _fits_by_caller.get(caller, 0) + 1
     return booster, offset
@@ -154,7 +168,8 @@ def fit_many(jobs: list[FitJob], params: BoosterParams, seed: int = 42,
 
     def run(i: int) -> None:
         j, _, sel = tasks[i]
-        boosters[i] = _train_booster(jobs[j].X, sel, jobs[j].y, jobs[j].bound, lgb_params, caller)
+        boosters[i] = _train_booster(jobs[j].X, sel, jobs[j].y, jobs[j].bound, lgb_params, caller,
+                                     params.huber_delta)
 
     if workers == 1:
         for i in order:

@@ -80,3 +80,24 @@ def test_fits_started_from_another_thread_count_there():
         in_thread = pool.submit(lambda: (fit_many([FitJob(X, y, kinds)], PARAMS), boosters_fitted())[1]).result()
     assert in_thread >= 2  # acid and base boosters, counted in the thread that asked for them
     assert boosters_fitted() == before
+
+
+def test_huber_loss_lets_a_few_wrong_labels_move_the_fit_less():
+    """A tenth of the labels 8 units off (a value attached to the wrong site looks like this): the squared
+    loss follows them, the Huber loss stays near the clean signal; without outliers the two agree."""
+    rng = np.random.default_rng(4)
+    x = rng.uniform(0, 10, 800)
+    X = x[:, None].astype(np.float32)
+    kinds = np.full(800, "acid")
+    wrong = rng.random(800) < 0.1
+    y = np.where(wrong, x + 8, x)
+    grid = np.linspace(1, 9, 17)[:, None].astype(np.float32)
+    gk = np.full(17, "acid")
+    params = dict(n_estimators=200, learning_rate=0.1, num_leaves=8, min_child_samples=20)
+    squared = SiteRegressor(params=BoosterParams(**params, huber_delta=0.0)).fit(X, y, kinds).predict(grid, gk)
+    huber = SiteRegressor(params=BoosterParams(**params, huber_delta=1.0)).fit(X, y, kinds).predict(grid, gk)
+    truth = grid[:, 0]
+    assert np.mean(squared - truth) > 0.5                      # pulled up by about a tenth of 8
+    assert abs(np.mean(huber - truth)) < 0.5 * np.mean(squared - truth)
+    clean = SiteRegressor(params=BoosterParams(**params, huber_delta=1.0)).fit(X, x, kinds).predict(grid, gk)
+    assert clean == pytest.approx(truth, abs=0.5)
