@@ -92,8 +92,8 @@ class FitJob:
     bound: np.ndarray | None = None
 
 
-def censored_squared_objective(y: np.ndarray, bound: np.ndarray, huber_delta: float = 0.0):
-    """LightGBM objective: squared error on labels, and on bounds only where the prediction crosses them.
+def censored_objective(y: np.ndarray, bound: np.ndarray, huber_delta: float = 0.0):
+    """LightGBM objective: squared (or Huber) error on labels, and on bounds only where the prediction crosses them.
 
     With ``huber_delta`` > 0 the loss is Huber's: a residual beyond the delta pulls with the force of
     the delta (gradient clipped, unit hessian, as LightGBM's own ``huber`` objective), so a value
@@ -136,7 +136,7 @@ def _train_booster(X: np.ndarray, rows: np.ndarray, y: np.ndarray, bound: np.nda
         offset = float(np.mean(yy[b == 0])) if np.any(b == 0) else float(np.mean(yy))
         data = lightgbm_module().Dataset(np.asarray(X[rows], np.float32), yy, init_score=np.full(len(rows), offset),
                            free_raw_data=True, params={"verbosity": -1})
-        booster = lightgbm_module().train({**params, "objective": censored_squared_objective(yy, b, huber_delta)},
+        booster = lightgbm_module().train({**params, "objective": censored_objective(yy, b, huber_delta)},
                                           data)
     with _fits_lock:
         _fits_by_caller[caller] = _fits_by_caller.get(caller, 0) + 1
