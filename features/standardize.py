@@ -42,6 +42,29 @@ def _tools():
     )
 
 
+# A hydroxy or mercapto group on an aromatic carbon next to a pyridine-type ring N, or para to one across a
+# six-membered ring, is the minor (lactim, thiolactim) drawing of an oxo or thioxo compound in water:
+# 2-pyridone and 4-pyridone outweigh their hydroxy tautomers by about 10^3 (Albert and Katritzky's
+# tautomer studies, from memory).  Standardization keeps the drawn tautomer (see the module note), so the
+# sites found, and their values, follow the drawing.
+_LACTIM = tuple(Chem.MolFromSmarts(s) for s in (
+    "[OX2H1,SX2H1]-[c;$(c:[nX2])]",
+    "[OX2H1,SX2H1]-c1:c:c:[nX2]:c:c:1",
+))
+
+
+def lactim_drawing(mol: Chem.Mol) -> bool:
+    """True when ``mol`` is drawn as a hydroxy/mercapto tautomer (lactim) of an aromatic N-heterocycle
+    whose oxo/thioxo (lactam) form usually predominates in water (2-/4-hydroxypyridine, hydroxy
+    pyrimidines, 2-mercaptopyridine, hydroxy azoles next to a ring N); 3-hydroxypyridine and
+    8-hydroxyquinoline are plain phenols and do not count."""
+    return any(mol.HasSubstructMatch(q) for q in _LACTIM)
+
+
+LACTIM_WARNING = ("drawn as a hydroxy/mercapto tautomer of an N-heterocycle (in water the oxo/thioxo form "
+                  "usually predominates); sites and values follow the drawing, so compare with the other form")
+
+
 def quiet_rdkit() -> None:
     """Silence RDKit's per-molecule warnings; callers report problems themselves."""
     RDLogger.DisableLog("rdApp.*")

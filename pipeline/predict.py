@@ -23,7 +23,7 @@ from pkasite.features.fingerprints import site_neighbourhood_bits
 from pkasite.features.graph import atoms_of
 from pkasite.features.site_features import featurize_sites
 from pkasite.features.sites import find_sites, load_catalog
-from pkasite.features.standardize import StructureError, quiet_rdkit, standardize_mol
+from pkasite.features.standardize import LACTIM_WARNING, StructureError, lactim_drawing, quiet_rdkit, standardize_mol
 from pkasite.models.domain import similarity_bin, tanimoto_max
 from pkasite.features.site_pairs import pair_geometry
 from pkasite.models.microstates import (MAX_EXACT_SITES, Microstates, default_interaction_model, exclusive_pairs,
@@ -175,6 +175,8 @@ def prepare_input(smiles, fmt: str = "smiles") -> PreparedInput:
     elements = {a.GetSymbol() for a in atoms_of(std.mol)} - ORGANIC
     if elements:
         return PreparedInput("unsupported_element", [f"element(s) {', '.join(sorted(elements))} not supported"])
+    if lactim_drawing(std.mol):
+        out.warnings.append(LACTIM_WARNING)
     out.mol, out.original_atoms = std.mol, std.original_atoms
     return out
 
