@@ -393,7 +393,11 @@ def _assignment(bundle: ModelBundle) -> str:
     out = ("<p>A molecule-level constant belongs to one site: the most acidic site for an acid constant, the most "
            "basic for a base constant, among the sites whose type can carry the measured value (catalog range "
            "widened by the assignment tolerance). Labels start at the site-type prior and are moved by the model's "
-           "own out-of-fold predictions for a few rounds; a site given in the data never moves.</p>" + _table(["", "count"], [[_e(k), _e(v)] for k, v in rows],
+           "own out-of-fold predictions for a few rounds; a site given in the data never moves. The rounds run once "
+           "on all training molecules, before cross-validation, so a molecule a CV fold later holds out has "
+           "already taken part, through its value, in choosing which site its neighbours' values belong to. "
+           "No prediction of a held-out molecule reads its own value, but the CV figures are not entirely "
+           "blind to it; a held-out evaluation split, when the run has one, is.</p>" + _table(["", "count"], [[_e(k), _e(v)] for k, v in rows],
                                                                   numeric={1}))
     by_type = sorted((a.get("labels_by_type") or {}).items(), key=lambda kv: -kv[1])[:N_TYPES]
     if by_type:

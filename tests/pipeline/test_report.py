@@ -131,6 +131,14 @@ def test_cautions_and_licences(bundle, report_file):
     assert ("NON-COMMERCIAL USE ONLY" in text) == bool(bundle.card.get("non_commercial"))
 
 
+def test_assignment_section_says_what_the_cv_figures_are_not_blind_to(report_file):
+    """Label assignment reads every training value before the CV folds are drawn; the reviewer is told."""
+    text = report_file.read_text(encoding="utf-8")
+    section = text[text.index('<section id="assignment">'):]
+    section = " ".join(section[:section.index("</section>")].split())
+    assert "not entirely blind" in section and "held-out evaluation split" in section
+
+
 def test_non_commercial_banner_when_the_card_says_so(bundle):
     import copy
     nc = copy.copy(bundle)
