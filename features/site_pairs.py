@@ -10,7 +10,7 @@ from collections.abc import Sequence
 import numpy as np
 from rdkit import Chem
 
-__all__ = ["aromatic_systems", "pair_geometry"]
+__all__ = ["aromatic_systems", "pair_geometry", "shared_charge_pairs"]
 
 
 def aromatic_systems(mol: Chem.Mol) -> np.ndarray:
@@ -54,3 +54,32 @@ def pair_geometry(mol: Chem.Mol, atoms: Sequence[int], dist: np.ndarray | None =
     system = aromatic_systems(mol)[atoms]
     conj = (system[:, None] == system[None, :]) & (system[:, None] >= 0)
     return d, conj
+
+
+def _amidine_partners(mol: Chem.Mol, atom: int) -> set[int]:
+    """For an N double-bonded (not aromatic) to a carbon: the other N atoms on that carbon, which take up
+    part of the positive charge when this N is protonated (amidinium resonance).  Empty otherwise."""
+    a = mol.GetAtomWithIdx(int(atom))
+    if a.GetAtomicNum() != 7:
+        return set()
+    out: set[int] = set()
+    for b in a.GetBonds():
+        c = b.GetOtherAtom(a)
+        if b.GetBondType() == Chem.BondType.DOUBLE and c.GetAtomicNum() == 6:
+            out |= {n.GetIdx() for n in c.GetNeighbors() if n.GetAtomicNum() == 7 and n.GetIdx() != a.GetIdx()}
+    return out
+
+
+def shared_charge_pairs(mol: Chem.Mol, atoms: Sequence[int]) -> np.ndarray:
+    """Pairs of site atoms whose protonated forms put charge on one and the same atom: two imine N whose
+    carbons share an amino N (a biguanide's two C=N), or an imine N and an amino N of its own amidine.
+    Their pair term is not a matter of distance (see ``InteractionModel.matrix``)."""
+    atoms = [int(a) for a in atoms]
+    partners = [_amidine_partners(mol, a) for a in atoms]
+    n = len(atoms)
+    out = np.zeros((n, n), bool)
+    for i in range(n):
+        for j in range(i + 1, n):
+            if (partners[i] & partners[j]) or atoms[j] in partners[i] or atoms[i] in partners[j]:
+                out[i, j] = out[j, i] = True
+    return out

@@ -89,13 +89,19 @@ class InteractionModel:
         return cls(**{k: d[k] for k in ("amplitude", "power", "conjugated_factor", "cap", "n_calibration",
                                         "opposite_factor") if k in d})
 
-    def matrix(self, distance: np.ndarray, conjugated: np.ndarray, kinds=None) -> np.ndarray:
+    def matrix(self, distance: np.ndarray, conjugated: np.ndarray, kinds=None, shared=None) -> np.ndarray:
         """Pair matrix for sites with the given distance and conjugation matrices (zero diagonal; sites
         on one atom get zero: they are handled as exclusive, not as interacting).  With ``kinds``,
         acid-base pairs (the only ones that can carry opposite charges) are scaled by
-        ``opposite_factor``."""
+        ``opposite_factor``.  ``shared`` marks pairs whose charged forms put charge on one common atom
+        (:func:`pkasite.features.site_pairs.shared_charge_pairs`, a biguanide's two imine N): like charges
+        there repel at least as strongly as any pair of the calibration set, so they get ``cap`` whatever
+        their distance."""
         d = np.asarray(distance, float)
         W = self.pair(d, conjugated)
+        if shared is not None:
+            like = True if kinds is None else np.asarray(kinds)[:, None] == np.asarray(kinds)[None, :]
+            W = np.where(np.asarray(shared, bool) & like, self.cap, W)
         W[d <= 0] = 0.0
         if kinds is not None and self.opposite_factor != 1.0:
             k = np.asarray(kinds)

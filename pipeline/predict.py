@@ -25,7 +25,7 @@ from pkasite.features.site_features import featurize_sites
 from pkasite.features.sites import find_sites, load_catalog
 from pkasite.features.standardize import LACTIM_WARNING, StructureError, lactim_drawing, quiet_rdkit, standardize_mol
 from pkasite.models.domain import similarity_bin, tanimoto_max
-from pkasite.features.site_pairs import pair_geometry
+from pkasite.features.site_pairs import pair_geometry, shared_charge_pairs
 from pkasite.models.microstates import (MAX_EXACT_SITES, Microstates, default_interaction_model, exclusive_pairs,
                                         weak_sites)
 
@@ -249,7 +249,8 @@ def molecule_microstates(mol: Chem.Mol, atoms, kinds, pka, priors, interactions,
     W = ex = None
     if len(atoms) > 1:
         d, conj = pair_geometry(mol, atoms)
-        W, ex = interactions.matrix(d, conj, kinds), exclusive_pairs(kinds, d, conj)
+        W = interactions.matrix(d, conj, kinds, shared_charge_pairs(mol, atoms))
+        ex = exclusive_pairs(kinds, d, conj)
     return Microstates(np.asarray(pka, float), kinds, W, window=window, exclusive=ex,
                        hold=weak_sites(kinds, priors, pka, window))
 

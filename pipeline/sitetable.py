@@ -38,7 +38,7 @@ class SiteTable:
         """Per mol_id: (site rows, pair matrix W, exclusive pairs) of the microstate model, for molecules
         with 2+ sites."""
         if self._interactions is None:
-            from pkasite.features.site_pairs import pair_geometry
+            from pkasite.features.site_pairs import pair_geometry, shared_charge_pairs
             from pkasite.models.microstates import default_interaction_model, exclusive_pairs
             model = default_interaction_model()
             out = {}
@@ -47,7 +47,8 @@ class SiteTable:
             for mol_id, rows in self.sites.groupby("mol_id").indices.items():
                 if len(rows) > 1:
                     d, conj = pair_geometry(self.mols[mol_id], atoms[rows])
-                    out[int(mol_id)] = (rows, model.matrix(d, conj, kinds[rows]), exclusive_pairs(kinds[rows], d, conj))
+                    W = model.matrix(d, conj, kinds[rows], shared_charge_pairs(self.mols[mol_id], atoms[rows]))
+                    out[int(mol_id)] = (rows, W, exclusive_pairs(kinds[rows], d, conj))
             self._interactions = out
         return self._interactions
 

@@ -126,3 +126,25 @@ def test_weak_sites_are_held_uncharged_whatever_their_prediction():
     free = Microstates(pka[:3], kinds[:3])
     assert ms.macro_constants()[0] == pytest.approx(free.macro_constants()[0])
     assert ms.mean_charge(7.4) == pytest.approx(free.mean_charge(7.4))
+
+
+def test_sites_whose_charges_share_an_atom_get_the_strongest_pair_term():
+    """A biguanide's two imine N share the amino N between their carbons: protonating both puts two
+    positive charges partly on that one N. Common practice: biguanides take one proton in water, the
+    second only in strong acid. Pairs that only sit 4 bonds apart (1,4-diaminobutane-like) stay on the
+    distance law, and an acid-base pair is never given the like-charge term."""
+    from rdkit import Chem
+    from pkasite.features.site_pairs import pair_geometry, shared_charge_pairs
+    model = default_interaction_model()
+    metformin = Chem.MolFromSmiles("CN(C)C(=N)NC(=N)N")  # imine N at atoms 4 and 7
+    shared = shared_charge_pairs(metformin, [4, 7])
+    assert shared.tolist() == [[False, True], [True, False]]
+    d, conj = pair_geometry(metformin, [4, 7])
+    W = model.matrix(d, conj, np.array(["base", "base"]), shared)
+    assert W[0, 1] == pytest.approx(model.cap) and W[0, 1] > 3 * float(model.pair(4.0, False))
+    assert model.matrix(d, conj, np.array(["base", "acid"]), shared)[0, 1] == 0.0
+    amine = Chem.MolFromSmiles("NCCCN")
+    assert not shared_charge_pairs(amine, [0, 4]).any()
+    # an amidine's imine N and its own amino N take up one charge between them
+    amidine = Chem.MolFromSmiles("CC(=N)N")
+    assert shared_charge_pairs(amidine, [2, 3]).tolist() == [[False, True], [True, False]]

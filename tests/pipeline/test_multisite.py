@@ -2,7 +2,8 @@
 
 Measured values from memory: CRC Handbook of Chemistry and Physics, 97th ed. (acetic acid, glycine,
 ethylenediamine, piperazine, citric acid, 4-aminopyridine, histamine), A. Albert and J. N. Phillips,
-J. Chem. Soc. 1956, 1294 (2-hydroxypyridine).  Tolerances reflect the model's error (about 1 log unit
+J. Chem. Soc. 1956, 1294 (2-hydroxypyridine), drug data compilations such as Clarke's Analysis of Drugs
+and Poisons (metformin 12.4 and 2.8).  Tolerances reflect the model's error (about 1 log unit
 RMSE on held-out molecules), the structural checks (how many constants, which charge) are tight.
 """
 from __future__ import annotations
@@ -23,6 +24,7 @@ MOLECULES = {
     "4-aminopyridine": "Nc1ccncc1",
     "2-hydroxypyridine": "Oc1ccccn1",
     "histamine": "NCCc1cnc[nH]1",
+    "metformin": "CN(C)C(=N)NC(=N)N",
 }
 
 
@@ -107,3 +109,15 @@ def test_histamine_two_base_constants(predicted):
     # mostly the monocation (the side-chain ammonium), a little dication; the handbook constants give 1.04
     assert _formal_charge(m["major_species"]) == 1 and m["charge_at_ph"] > 1.0
     assert m["charge_at_ph"] == pytest.approx(_dibase_charge(9.75, 6.04), abs=0.25)
+
+
+def test_metformin_is_a_monocation_at_physiological_ph(predicted):
+    """Metformin takes one proton near 12.4 and a second only near 2.8 (from memory, see the module note):
+    at pH 7.4 it is a monocation. Its two imine N share one amino N, so they are not two independent
+    bases near 10 (which would make a dication at 7.4)."""
+    m = predicted[0].loc["metformin"]
+    constants = [float(x) for x in m["macro_pkas"].split(";") if x]
+    assert len(constants) == 2 and not any(5.0 < x < 9.0 for x in constants)
+    assert max(constants) == pytest.approx(12.4, abs=2.0) and min(constants) == pytest.approx(2.8, abs=1.5)
+    assert _formal_charge(m["major_species"]) == 1
+    assert m["charge_at_ph"] == pytest.approx(_dibase_charge(12.4, 2.8), abs=0.05)
