@@ -55,14 +55,15 @@ _LACTIM = tuple(Chem.MolFromSmarts(s) for s in (
 
 def lactim_drawing(mol: Chem.Mol) -> bool:
     """True when ``mol`` is drawn as a hydroxy/mercapto tautomer (lactim) of an aromatic N-heterocycle
-    whose oxo/thioxo (lactam) form usually predominates in water (2-/4-hydroxypyridine, hydroxy
-    pyrimidines, 2-mercaptopyridine, hydroxy azoles next to a ring N); 3-hydroxypyridine and
-    8-hydroxyquinoline are plain phenols and do not count."""
+    whose oxo/thioxo (lactam) form often predominates in water (2-/4-hydroxypyridine, hydroxy
+    pyrimidines, 2-mercaptopyridine; for hydroxy azoles next to a ring N the balance varies, 3-hydroxy-
+    isoxazoles stay largely hydroxy, from memory); 3-hydroxypyridine and 8-hydroxyquinoline are plain phenols and do
+    not count."""
     return any(mol.HasSubstructMatch(q) for q in _LACTIM)
 
 
 LACTIM_WARNING = ("drawn as a hydroxy/mercapto tautomer of an N-heterocycle (in water the oxo/thioxo form "
-                  "usually predominates); sites and values follow the drawing, so compare with the other form")
+                  "often predominates); sites and values follow the drawing, so compare with the other form")
 
 
 def quiet_rdkit() -> None:
