@@ -56,9 +56,9 @@ _LACTIM = tuple(Chem.MolFromSmarts(s) for s in (
 def lactim_drawing(mol: Chem.Mol) -> bool:
     """True when ``mol`` is drawn as a hydroxy/mercapto tautomer (lactim) of an aromatic N-heterocycle
     whose oxo/thioxo (lactam) form often predominates in water (2-/4-hydroxypyridine, hydroxy
-    pyrimidines, 2-mercaptopyridine; for hydroxy azoles next to a ring N the balance varies, 3-hydroxy-
-    isoxazoles stay largely hydroxy, from memory); 3-hydroxypyridine and 8-hydroxyquinoline are plain phenols and do
-    not count."""
+    pyrimidines, 2-mercaptopyridine; for hydroxy azoles next to a ring N the balance varies:
+    3-hydroxyisoxazoles stay largely hydroxy, from memory); 3-hydroxypyridine and 8-hydroxyquinoline
+    are plain phenols and do not count."""
     return any(mol.HasSubstructMatch(q) for q in _LACTIM)
 
 
