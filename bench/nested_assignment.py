@@ -32,17 +32,17 @@ REPO = Path(__file__).resolve().parents[1]
 
 def rmse_table(prep, site_pred: np.ndarray) -> dict:
     """Value-free RMSE per kind and overall of one set of site predictions."""
+    from pkasite.models.metrics import point_metrics
     from pkasite.pipeline import evaluation as E
     from pkasite.pipeline.train import _labels
     mols = _labels(prep)
     pred = E.constants_by_mol(prep.table, site_pred)[mols["mol_id"].to_numpy()]
-    err = pred - mols["label"].to_numpy()
-    ok = ~np.isnan(err)
+    label = mols["label"].to_numpy()
+    ok = ~np.isnan(pred)
+    kind = mols["kind"].to_numpy()
     out = {"n": int(ok.sum())}
-    for kind in ("acid", "base"):
-        sel = ok & (mols["kind"].to_numpy() == kind)
-        out[kind] = float(np.sqrt(np.mean(err[sel] ** 2)))
-    out["overall"] = float(np.sqrt(np.mean(err[ok] ** 2)))
+    for name, sel in (("acid", ok & (kind == "acid")), ("base", ok & (kind == "base")), ("overall", ok)):
+        out[name] = point_metrics(label[sel], pred[sel])["rmse"]
     return out
 
 

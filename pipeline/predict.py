@@ -25,11 +25,10 @@ from pkasite.features.site_features import featurize_sites
 from pkasite.features.sites import find_sites, load_catalog
 from pkasite.features.standardize import LACTIM_WARNING, StructureError, lactim_drawing, quiet_rdkit, standardize_mol
 from pkasite.models.domain import similarity_bin, tanimoto_max
-from pkasite.features.site_pairs import pair_geometry, shared_charge_pairs
-from pkasite.models.microstates import (MAX_EXACT_SITES, Microstates, default_interaction_model, exclusive_pairs,
-                                        weak_sites)
+from pkasite.models.microstates import MAX_EXACT_SITES, Microstates, default_interaction_model, weak_sites
 
 from .bundle import ModelBundle
+from .sitetable import pair_terms
 
 MOLECULE_COLUMNS = ["id", "smiles", "status", "acid_pka", "acid_pka_low", "acid_pka_high", "base_pka",
                     "base_pka_low", "base_pka_high", "macro_pkas", "macro_pkas_all", "isoelectric_ph",
@@ -248,9 +247,7 @@ def molecule_microstates(mol: Chem.Mol, atoms, kinds, pka, priors, interactions,
     kinds = np.asarray(kinds)
     W = ex = None
     if len(atoms) > 1:
-        d, conj = pair_geometry(mol, atoms)
-        W = interactions.matrix(d, conj, kinds, shared_charge_pairs(mol, atoms))
-        ex = exclusive_pairs(kinds, d, conj)
+        W, ex = pair_terms(mol, atoms, kinds, interactions)
     return Microstates(np.asarray(pka, float), kinds, W, window=window, exclusive=ex,
                        hold=weak_sites(kinds, priors, pka, window))
 

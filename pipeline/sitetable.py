@@ -38,17 +38,14 @@ class SiteTable:
         """Per mol_id: (site rows, pair matrix W, exclusive pairs) of the microstate model, for molecules
         with 2+ sites."""
         if self._interactions is None:
-            from pkasite.features.site_pairs import pair_geometry, shared_charge_pairs
-            from pkasite.models.microstates import default_interaction_model, exclusive_pairs
+            from pkasite.models.microstates import default_interaction_model
             model = default_interaction_model()
             out = {}
             atoms = self.sites["atom"].to_numpy()
             kinds = self.sites["kind"].to_numpy()
             for mol_id, rows in self.sites.groupby("mol_id").indices.items():
                 if len(rows) > 1:
-                    d, conj = pair_geometry(self.mols[mol_id], atoms[rows])
-                    W = model.matrix(d, conj, kinds[rows], shared_charge_pairs(self.mols[mol_id], atoms[rows]))
-                    out[int(mol_id)] = (rows, W, exclusive_pairs(kinds[rows], d, conj))
+                    out[int(mol_id)] = (rows, *pair_terms(self.mols[mol_id], atoms[rows], kinds[rows], model))
             self._interactions = out
         return self._interactions
 
@@ -69,6 +66,17 @@ class SiteTable:
             "mean_confidence": float(lab["confidence"].mean()) if len(lab) else float("nan"),
             "labels_by_type": {k: int(v) for k, v in lab["site_type"].value_counts().items()},
         }
+
+
+def pair_terms(mol: Chem.Mol, atoms, kinds, model) -> tuple[np.ndarray, np.ndarray]:
+    """The pair matrix ``W`` and the exclusive pairs of the microstate model for the sites ``atoms``
+    (of ``kinds``) of ``mol``, under the interaction model ``model``: the one place training and
+    prediction get them from."""
+    from pkasite.features.site_pairs import pair_geometry, shared_charge_pairs
+    from pkasite.models.microstates import exclusive_pairs
+    kinds = np.asarray(kinds)
+    d, conj = pair_geometry(mol, atoms)
+    return model.matrix(d, conj, kinds, shared_charge_pairs(mol, atoms)), exclusive_pairs(kinds, d, conj)
 
 
 def measurement_rank(rec) -> int:
