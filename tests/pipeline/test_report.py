@@ -73,6 +73,12 @@ class _Page(HTMLParser):
             self.rows[self._section] = self.rows.get(self._section, 0) + 1
 
 
+def _section(text: str, sid: str) -> str:
+    """The HTML of the report section ``sid``."""
+    section = text[text.index(f'<section id="{sid}">'):]
+    return section[:section.index("</section>")]
+
+
 @pytest.fixture(scope="module")
 def page(report_file):
     p = _Page()
@@ -110,9 +116,7 @@ def test_worst_predictions_match_the_cv_table(bundle, report_file, page):
     mol = cvp[cvp.scheme == "molecule"].dropna(subset=["pred_site_model", "label"])
     err = (mol.pred_site_model - mol.label).abs()
     top = mol.loc[err.sort_values(ascending=False).index[:20]]
-    text = report_file.read_text(encoding="utf-8")
-    section = text[text.index('<section id="worst-predictions">'):]
-    section = section[:section.index("</section>")]
+    section = _section(report_file.read_text(encoding="utf-8"), "worst-predictions")
     assert page.rows["worst-predictions"] == 21          # header + 20
     assert section.count("<svg") == 20
     for smi, label, pred in zip(top.smiles, top.label, top.pred_site_model):
@@ -133,9 +137,7 @@ def test_cautions_and_licences(bundle, report_file):
 
 def test_assignment_section_says_what_the_cv_figures_are_not_blind_to(report_file):
     """Label assignment reads every training value before the CV folds are drawn; the reviewer is told."""
-    text = report_file.read_text(encoding="utf-8")
-    section = text[text.index('<section id="assignment">'):]
-    section = " ".join(section[:section.index("</section>")].split())
+    section = " ".join(_section(report_file.read_text(encoding="utf-8"), "assignment").split())
     assert "not entirely blind" in section and "held-out evaluation split" in section
 
 
