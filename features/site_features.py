@@ -28,6 +28,7 @@ from rdkit.Chem import rdMolDescriptors, rdPartialCharges
 
 from .fingerprints import MAX_RADIUS, mol_fingerprint_counts, site_environment_ids
 from .graph import atoms_of, bonds_of
+from .hammett import HAM_NAMES, hammett_row
 
 __all__ = [
     "FEATURES_VERSION",
@@ -59,6 +60,8 @@ class FeatureSettings:
     type_prior    add ``type_prior``: the typical aqueous pKa the site catalog gives the site's type
                   (NaN for a type it does not list), so that trees can group types by their usual
                   strength and place a rare or unseen type among types of similar strength
+    hammett       add the ``ham_`` group: sums of Hammett substituent constants (sigma_m, sigma_p) on
+                  the six-membered aromatic ring the site sits in or on (:mod:`.hammett`)
     """
 
     radii: tuple[int, ...] = (1, 2, 3)
@@ -67,6 +70,7 @@ class FeatureSettings:
     mol_fp_radius: int = 2
     use_counts: bool = True
     type_prior: bool = False   # False keeps the column layout of bundles written before it existed
+    hammett: bool = False      # likewise
 
     def __post_init__(self) -> None:
         radii = self.radii
@@ -98,6 +102,9 @@ class FeatureSettings:
         if not isinstance(self.type_prior, (bool, np.bool_)):
             raise ValueError(f"type_prior must be true or false, got {self.type_prior!r}")
         object.__setattr__(self, "type_prior", bool(self.type_prior))
+        if not isinstance(self.hammett, (bool, np.bool_)):
+            raise ValueError(f"hammett must be true or false, got {self.hammett!r}")
+        object.__setattr__(self, "hammett", bool(self.hammett))
 
     def to_dict(self) -> dict[str, Any]:
         """Plain JSON/YAML-ready dict, including the feature version."""
@@ -109,6 +116,7 @@ class FeatureSettings:
             "mol_fp_radius": self.mol_fp_radius,
             "use_counts": self.use_counts,
             "type_prior": self.type_prior,
+            "hammett": self.hammett,
         }
 
     @classmethod
@@ -121,7 +129,7 @@ class FeatureSettings:
                 f"feature settings were written for feature version {version}, this code builds "
                 f"version {FEATURES_VERSION}; re-featurize and retrain the model"
             )
-        allowed = {"radii", "n_bits", "mol_fp_bits", "mol_fp_radius", "use_counts", "type_prior"}
+        allowed = {"radii", "n_bits", "mol_fp_bits", "mol_fp_radius", "use_counts", "type_prior", "hammett"}
         unknown = sorted(set(data) - allowed)
         if unknown:
             raise ValueError(f"unknown feature setting(s) {unknown}; allowed keys: {sorted(allowed)}")
@@ -184,6 +192,7 @@ class _Layout:
     hb: int
     mol: int  # descriptors followed by the fingerprint
     prior: int = -1  # the type_prior column (-1: not built)
+    ham: int = -1    # the first ham_ column (-1: not built)
 
     @property
     def n(self) -> int:
@@ -227,11 +236,14 @@ def _layout(settings: FeatureSettings, site_types: tuple[str, ...]) -> _Layout:
     names += CHG_NAMES
     hb = len(names)
     names += HB_NAMES
+    ham = len(names) if settings.hammett else -1
+    if settings.hammett:
+        names += HAM_NAMES
     mol = len(names)
     names += MOL_DESC_NAMES
     names += [f"mol_fp_{b}" for b in range(settings.mol_fp_bits)]
     return _Layout(tuple(names), {t: typ + i for i, t in enumerate(types)},
-                   env, typ, kind, ctx, res, ind, chg, hb, mol, prior)
+                   env, typ, kind, ctx, res, ind, chg, hb, mol, prior, ham)
 
 
 @lru_cache(maxsize=1)
@@ -623,6 +635,8 @@ def featurize_sites(
             x[layout.ind:layout.ind + n_ind] = md.ind(s)
             x[layout.chg:layout.chg + n_chg] = md.chg(s)
             x[layout.hb:layout.hb + n_hb] = md.hb(s)
+            if layout.ham >= 0:
+                x[layout.ham:layout.ham + len(HAM_NAMES)] = hammett_row(md, s)
     if not settings.use_counts and settings.radii:
         block = X[:, layout.env:layout.env + len(settings.radii) * nb]
         np.minimum(block, 1.0, out=block)

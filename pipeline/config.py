@@ -95,6 +95,7 @@ class FeaturesConfig(_Strict):
     mol_fp_radius: int = 2
     use_counts: bool = True
     type_prior: bool = True    # a column with the site catalog's typical pKa of the site's type
+    hammett: bool = False      # sums of Hammett sigma constants on the site's aromatic ring (FEATURES.md)
 
 
 class _ModelSettings(_Strict):

@@ -33,7 +33,8 @@ BASELINES = ("type_median", "mol_morgan")
 def feature_settings(cfg: RunConfig) -> FeatureSettings:
     f = cfg.features
     return FeatureSettings(radii=tuple(f.radii), n_bits=f.n_bits, mol_fp_bits=f.mol_fp_bits,
-                           mol_fp_radius=f.mol_fp_radius, use_counts=f.use_counts, type_prior=f.type_prior)
+                           mol_fp_radius=f.mol_fp_radius, use_counts=f.use_counts, type_prior=f.type_prior,
+                           hammett=f.hammett)
 
 
 @dataclass
