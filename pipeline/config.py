@@ -102,6 +102,10 @@ class _ModelSettings(_Strict):
     per_kind: bool = True
     censored_sites: bool = True      # a molecule's other sites of the kind enter training as one-sided bounds
     microstate_targets: bool = True  # labeled sites train on value + (site - molecule constant) offsets
+    # sites of a type without training labels: shrink towards the type's catalog prior by a weight fitted
+    # on the unseen-site-type CV folds (models/prior_blend.py; needs those folds; measured, not turned on:
+    # features/FEATURES.md)
+    unseen_type_blend: bool = False
     assignment_rounds: int = 3       # at most this many label re-assignment rounds (0: keep catalog priors)
     assignment_stop_fraction: float = Field(0.01, ge=0, le=1)  # stop once at most this share of labels moves
     assignment_folds: int | None = Field(3, ge=2)  # molecule-grouped folds of the rounds (None: cv.folds)

@@ -26,6 +26,7 @@ from pkasite.features.sites import find_sites, load_catalog
 from pkasite.features.standardize import LACTIM_WARNING, StructureError, lactim_drawing, quiet_rdkit, standardize_mol
 from pkasite.models.domain import similarity_bin, tanimoto_max
 from pkasite.models.microstates import MAX_EXACT_SITES, Microstates, default_interaction_model, weak_sites
+from pkasite.models.prior_blend import blend
 
 from .bundle import ModelBundle
 from .sitetable import pair_terms
@@ -300,6 +301,12 @@ def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4, level: fl
         X = featurize_sites(items, bundle.settings, bundle.site_types)
         kinds = np.array([it[2] for it in items])
         pka = bundle.regressor.predict(X, kinds)
+        # a site of a type without training labels leans towards the type's catalog prior
+        weights = bundle.domain.get("unseen_type_weight")
+        support = bundle.domain["type_support"]
+        blended = np.array([bool(weights) and support.get(k, {}).get(t, 0) == 0 for _, _, k, t in items])
+        model_pka = pka
+        pka = blend(pka, priors, blended, kinds, weights)
         bits = np.stack([site_neighbourhood_bits(m, a) for m, a, _, _ in items])
         sim = np.zeros(n)
         for kind in ("acid", "base"):
@@ -313,7 +320,11 @@ def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4, level: fl
         mol_half = mol_cal.half_width(bins, level)
         if explain:
             from .explain import explain_sites, format_explanation
-            phrases = [format_explanation(p) for p in explain_sites(bundle, items)]
+            pairs = explain_sites(bundle, items)
+            for j in np.flatnonzero(blended & (pka != model_pka)):
+                pairs[j] = [(f"no training example of type {items[j][3]}: moved towards its typical pKa "
+                             f"{priors[j]:.1f}", float(pka[j] - model_pka[j]))] + pairs[j]
+            phrases = [format_explanation(p) for p in pairs]
     else:
         kinds, pka, sim, half, mol_half = (np.array([]),) * 5
     owners = np.array(owners, dtype=int)

@@ -18,6 +18,7 @@ from pkasite.features.site_features import FeatureSettings
 from pkasite.features.sites import load_catalog
 from pkasite.models.domain import tanimoto_max
 from pkasite.models.metrics import bootstrap_metrics, point_metrics
+from pkasite.models.prior_blend import blend, prior_weights
 from pkasite.models.regressor import FitJob, SiteRegressor, fit_many
 from pkasite.models.splits import group_kfold, murcko_scaffold, unseen_group_folds
 
@@ -162,10 +163,15 @@ def site_job(prep: Prepared, train_mols: np.ndarray, cfg: RunConfig, only_kinds=
     in_train = np.isin(sites["mol_id"].to_numpy(), train_mols)
     bound = site_bounds(prep) if cfg.model.censored_sites else np.zeros(len(sites), np.int8)
     rows = np.flatnonzero(in_train & (sites["labeled"].to_numpy() | (bound != 0)))
-    # the labeled site's target is the value plus its microstate offset (site pKa - molecule constant)
-    y = sites["label"].to_numpy() + np.where(sites["labeled"].to_numpy(), sites["offset"].to_numpy(), 0.0)
-    return FitJob(prep.X, y, sites["kind"].to_numpy(), rows, cfg.model.per_kind,
+    return FitJob(prep.X, site_targets(prep), sites["kind"].to_numpy(), rows, cfg.model.per_kind,
                   frozenset(only_kinds) if only_kinds is not None else None, bound)
+
+
+def site_targets(prep: Prepared) -> np.ndarray:
+    """Per site row: the labeled site's target, its value plus its microstate offset (site pKa - molecule
+    constant); the molecule's value on the other rows (a bound where :func:`site_bounds` sets one)."""
+    sites = prep.sites
+    return sites["label"].to_numpy() + np.where(sites["labeled"].to_numpy(), sites["offset"].to_numpy(), 0.0)
 
 
 def fit_regressor(prep: Prepared, train_mols: np.ndarray, cfg: RunConfig, only_kinds=None) -> SiteRegressor:
@@ -221,6 +227,48 @@ def site_oof(prep: Prepared, splits, regs: list[SiteRegressor], with_similarity:
                 if len(q):
                     sim[q] = tanimoto_max(prep.bits[q], prep.bits[t])
     return pred, fold, sim
+
+
+def unseen_type_rows(prep: Prepared, splits, jobs: list[FitJob]) -> np.ndarray:
+    """Per site row: True for a test site of a fold whose training labels hold no site of its kind and
+    type (every site of the held-out types in the unseen-site-type folds; a rare type's sites elsewhere)."""
+    sites = prep.sites
+    key = (sites["kind"] + ":" + sites["site_type"]).to_numpy()
+    labeled = sites["labeled"].to_numpy()
+    out = np.zeros(len(sites), bool)
+    for (_, _, te), job in zip(splits, jobs):
+        rows = _test_rows(prep, te)
+        out[rows] = ~np.isin(key[rows], np.unique(key[job.rows[labeled[job.rows]]]))
+    return out
+
+
+def unseen_type_weights(prep: Prepared, site_pred: np.ndarray, unseen: np.ndarray,
+                        exclude_mols=()) -> dict[str, float]:
+    """Per kind, the weight of the model against the type's catalog prior on sites of unseen types
+    (:mod:`pkasite.models.prior_blend`), from the labeled ``unseen`` rows of out-of-fold predictions
+    ``site_pred`` outside the molecules ``exclude_mols``."""
+    sites = prep.sites
+    rows = np.flatnonzero(sites["labeled"].to_numpy() & unseen & np.isfinite(site_pred)
+                          & ~np.isin(sites["mol_id"].to_numpy(), np.asarray(exclude_mols)))
+    return prior_weights(site_pred[rows], sites["prior"].to_numpy()[rows], site_targets(prep)[rows],
+                         sites["kind"].to_numpy()[rows])
+
+
+def blend_unseen_types(prep: Prepared, splits, site_pred: np.ndarray, unseen: np.ndarray,
+                       reference: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
+    """Out-of-fold ``site_pred`` with each fold's ``unseen`` rows blended towards their type's prior, the
+    weights taken from the unseen-site-type folds' predictions ``reference`` (site_pred, unseen) on the
+    other molecules only (cross-fitted: no test molecule's value weighs its own blend)."""
+    sites = prep.sites
+    out = site_pred.copy()
+    for _, _, te in splits:
+        rows = _test_rows(prep, te)
+        rows = rows[unseen[rows]]
+        if len(rows):
+            w = unseen_type_weights(prep, *reference, exclude_mols=te)
+            out[rows] = blend(site_pred[rows], sites["prior"].to_numpy()[rows], np.ones(len(rows), bool),
+                              sites["kind"].to_numpy()[rows], w)
+    return out
 
 
 def oof_site_predictions(prep: Prepared, splits, cfg: RunConfig, with_similarity: bool = False,
@@ -396,6 +444,7 @@ class CVResult:
     residuals: pd.DataFrame          # molecule-grouped CV, value-free (evaluation.residual_table)
     scaffold_residuals: pd.DataFrame | None = None   # scaffold-grouped CV, value-free
     scaffold_folds: dict | None = None               # mol_id -> scaffold fold
+    unseen_type_weight: dict | None = None           # kind -> model weight on sites of unseen types (None: off)
 
 
 def cross_validate(prep: Prepared, cfg: RunConfig, clock: StageClock | None = None) -> CVResult:
@@ -408,16 +457,23 @@ def cross_validate(prep: Prepared, cfg: RunConfig, clock: StageClock | None = No
     """
     clock = clock or StageClock()
     mols = _labels(prep)
-    preds, scored, residuals = [], [], {}
+    preds, scored, residuals = {}, {}, {}
     folds_by_scheme = {}
-    for scheme in cfg.cv.schemes:
+    reference = None  # the unseen-site-type folds' (site_pred, unseen): weighs the prior blend
+    # the unseen-site-type folds run first, so that every scheme's unseen types can be blended
+    for scheme in sorted(cfg.cv.schemes, key=lambda s: s != "site_type"):
         with clock(f"cv {scheme}" + (" + baselines" if cfg.cv.baselines else "")) as stage:
             splits = make_splits(prep, scheme, cfg)
-            jobs = (site_jobs(prep, splits, cfg, unseen_type=(scheme == "site_type"))
-                    + (morgan_jobs(prep, splits) if cfg.cv.baselines else []))
+            sjobs = site_jobs(prep, splits, cfg, unseen_type=(scheme == "site_type"))
+            jobs = sjobs + (morgan_jobs(prep, splits) if cfg.cv.baselines else [])
             regs = fit_many(jobs, booster_params(cfg.model), cfg.seed)
             with_sim = scheme in ("molecule", "scaffold")
             site_pred, fold, sim = site_oof(prep, splits, regs[:len(splits)], with_similarity=with_sim)
+            unseen = unseen_type_rows(prep, splits, sjobs)
+            if scheme == "site_type" and cfg.model.unseen_type_blend:
+                reference = (site_pred.copy(), unseen)
+            if reference is not None:
+                site_pred = blend_unseen_types(prep, splits, site_pred, unseen, reference)
             const = E.table_constants(prep.table, site_pred)
             by_model = {E.HEADLINE: E.constants_by_mol(prep.table, site_pred),
                         E.ATTRIBUTION: E.attributed_predictions(prep.sites, site_pred)}
@@ -435,8 +491,8 @@ def cross_validate(prep: Prepared, cfg: RunConfig, clock: StageClock | None = No
                            pred_site_type=np.where(has, prep.sites["site_type"].to_numpy()[r], ""),
                            similarity=np.where(has, sim[r], np.nan),
                            **{f"pred_{k}": v[sub["mol_id"].to_numpy()] for k, v in by_model.items()})
-            preds.append(p)
-            scored.append((scheme, sub, by_model, p))
+            preds[scheme] = p
+            scored[scheme] = (sub, by_model, p)
             if with_sim:
                 residuals[scheme] = E.residual_table(prep.table, site_pred, sim)
                 folds_by_scheme[scheme] = fold_of_mol.to_dict()
@@ -444,15 +500,18 @@ def cross_validate(prep: Prepared, cfg: RunConfig, clock: StageClock | None = No
                                    for k in by_model)
     with clock("bootstrap metrics") as stage:
         tables = []
-        for scheme, sub, by_model, p in scored:
+        for scheme in cfg.cv.schemes:
+            sub, by_model, p = scored[scheme]
             tables.append(metric_table(sub, by_model, cfg, scheme))
             if scheme != "site_type":  # per-fold figures (for site_type the folds are the type subsets)
                 tables.append(pd.DataFrame([
                     {"scheme": scheme, "model": E.HEADLINE, "subset": f"fold:{f}",
                      **point_metrics(g["label"], g[f"pred_{E.HEADLINE}"])} for f, g in p.groupby("fold")]))
         stage.note = f"{cfg.cv.bootstrap} resamples"
-    return CVResult(pd.concat(tables, ignore_index=True), pd.concat(preds, ignore_index=True),
-                    residuals.get("molecule"), residuals.get("scaffold"), folds_by_scheme.get("scaffold"))
+    weights = unseen_type_weights(prep, *reference) if reference is not None else None
+    return CVResult(pd.concat(tables, ignore_index=True), pd.concat([preds[s] for s in cfg.cv.schemes],
+                                                                    ignore_index=True),
+                    residuals.get("molecule"), residuals.get("scaffold"), folds_by_scheme.get("scaffold"), weights)
 
 
 # ----------------------------------------------------------------------------- domain and intervals
@@ -491,11 +550,18 @@ def coverage_checks(cv: CVResult, cfg: RunConfig, test_residuals: pd.DataFrame |
 
 # ----------------------------------------------------------------------------- evaluation on a held-out set
 
-def heldout_site_predictions(reg: SiteRegressor, prep: Prepared, train_bits: dict) -> tuple[np.ndarray, np.ndarray]:
+def heldout_site_predictions(reg: SiteRegressor, prep: Prepared, train_bits: dict, train_prep: Prepared | None = None,
+                             unseen_type_weight: dict | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Site predictions and domain similarities for a held-out site table: features and kinds only,
-    no value and no attached site."""
+    no value and no attached site.  With ``unseen_type_weight``, sites of a type without labels in
+    ``train_prep`` are blended towards their type's prior, as in prediction."""
     kinds = prep.sites["kind"].to_numpy()
     site_pred = reg.predict(prep.X, kinds)
+    if unseen_type_weight and train_prep is not None:
+        t = train_prep.sites
+        seen = np.unique((t["kind"] + ":" + t["site_type"]).to_numpy()[t["labeled"].to_numpy()])
+        unseen = ~np.isin((prep.sites["kind"] + ":" + prep.sites["site_type"]).to_numpy(), seen)
+        site_pred = blend(site_pred, prep.sites["prior"].to_numpy(), unseen, kinds, unseen_type_weight)
     sim = np.full(len(kinds), np.nan)
     for kind in ("acid", "base"):
         sel = kinds == kind
@@ -505,7 +571,7 @@ def heldout_site_predictions(reg: SiteRegressor, prep: Prepared, train_bits: dic
 
 
 def evaluate_holdout(reg: SiteRegressor, measurements: pd.DataFrame, cfg: RunConfig, train_prep: Prepared,
-                     train_bits: dict) -> tuple[dict, pd.DataFrame]:
+                     train_bits: dict, unseen_type_weight: dict | None = None) -> tuple[dict, pd.DataFrame]:
     """Value-free metrics of a fitted model and the Morgan baseline on held-out measurements, and the
     held-out residual table (for coverage checks).
 
@@ -514,7 +580,7 @@ def evaluate_holdout(reg: SiteRegressor, measurements: pd.DataFrame, cfg: RunCon
     (by the model's predictions and the value, as in training).
     """
     prep = prepare(measurements, cfg)
-    site_pred, sim = heldout_site_predictions(reg, prep, train_bits)
+    site_pred, sim = heldout_site_predictions(reg, prep, train_bits, train_prep, unseen_type_weight)
     constant = E.constants_by_mol(prep.table, site_pred)
     residuals = E.residual_table(prep.table, site_pred, sim)
     labeled = prep.sites["labeled"].to_numpy().copy()

@@ -148,7 +148,8 @@ def _card(cfg: RunConfig, registry: Registry, measurements: pd.DataFrame, n_mole
                         f"its site type has at least {domain['min_type_support']} training examples. Site intervals "
                         f"(pka_low, pka_high) and molecule intervals (acid_pka_low ... base_pka_high) are "
                         f"split-conformal by similarity bin from value-free molecule-grouped CV residuals. Observed "
-                        f"coverage on data the calibration never saw: " + coverage_summary(coverage) + "."),
+                        f"coverage on data the calibration never saw: " + coverage_summary(coverage) + "."
+                        + _blend_note(domain.get("unseen_type_weight"))),
         "limitations": ["Macroscopic constants and charge come from microstates whose like charged sites repel "
                         "by a pair term that knows only the bond count between them and shared aromatic systems "
                         "(no geometry): cage amines and rings with several short paths between two sites are "
@@ -161,6 +162,14 @@ def _card(cfg: RunConfig, registry: Registry, measurements: pd.DataFrame, n_mole
                         "that can be.",
                         "Tautomers are predicted as drawn."],
     }
+
+
+def _blend_note(weights: dict | None) -> str:
+    if not weights:
+        return ""
+    return (" Sites of a type without training labels are predicted as w * model + (1 - w) * the type's "
+            "catalog prior, w = " + ", ".join(f"{weights[k]:.2f} ({k})" for k in sorted(weights))
+            + " (least squares on the unseen-site-type CV folds' out-of-fold predictions).")
 
 
 def _metric_key(*parts: str) -> str:
@@ -256,13 +265,14 @@ def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_
     domain = {"threshold": threshold, "target_rmse": cfg.domain.target_rmse,
               "min_type_support": cfg.domain.min_type_support,
               "type_support": {k: {t: int(n) for (kk, t), n in support.items() if kk == k} for k in ("acid", "base")},
+              "unseen_type_weight": cv.unseen_type_weight,
               "elements": T.elements_seen(prep.table.mols),
               "max_heavy_atoms": int(T.heavy_atom_counts(prep.table.mols).max())}
     heldout, test_residuals = None, None
     if cfg.train.eval_splits:
         with clock("held-out evaluation") as stage:
             heldout, test_residuals = T.evaluate_holdout(final, T.split_filter(measurements, cfg.train.eval_splits),
-                                                         cfg, prep, train_bits)
+                                                         cfg, prep, train_bits, cv.unseen_type_weight)
             stage.note = ", ".join(f"value-free RMSE {k} {heldout[f'test_rmse_{k}']:.2f} (Morgan baseline "
                                    f"{heldout[f'baseline_mol_morgan_test_rmse_{k}']:.2f})" for k in ("acid", "base")
                                    if f"test_rmse_{k}" in heldout)

@@ -91,3 +91,35 @@ def test_molecule_constant_comes_from_the_microstates_or_the_given_site():
     got = E.molecule_constants(sites, pred, np.array([np.nan, np.nan, 5.0, np.nan]))
     assert got["pred"].to_numpy() == pytest.approx([4.2, 10.5, 9.0, 4.5 - np.log10(2)], abs=1e-3)
     assert got["row"].tolist() == [0, 2, 5, 6]
+
+
+def test_unseen_type_blend_never_weighs_a_fold_with_its_own_values(fitted):
+    """The prior blend of unseen site types (model.unseen_type_blend) is cross-fitted: the weights that
+    blend one fold's predictions come from the other folds' molecules only, so changing a fold's own
+    measured values leaves its blended predictions as they were."""
+    prep, _, _ = fitted
+    cfg = CFG.with_overrides({"cv.site_type_min_count": 15, "cv.site_type_folds": 3})
+    splits = T.make_splits(prep, "site_type", cfg)
+    jobs = T.site_jobs(prep, splits, cfg, unseen_type=True)
+    pred, _, _ = T.site_oof(prep, splits, T.fit_many(jobs, T.booster_params(cfg.model), cfg.seed))
+    unseen = T.unseen_type_rows(prep, splits, jobs)
+    sites = prep.sites
+    # every site of a held-out type is unseen in its fold; the labeled sites of a fold are all of held-out types
+    for _, _, te in splits:
+        rows = T._test_rows(prep, te)
+        lab = rows[sites["labeled"].to_numpy()[rows]]
+        assert unseen[lab].all()
+    blended = T.blend_unseen_types(prep, splits, pred, unseen, (pred, unseen))
+    moved = np.isfinite(pred) & (blended != pred)
+    assert moved.any() and not (moved & ~unseen).any()
+    name, _, te = splits[0]
+    own = T._test_rows(prep, te)
+    saved = sites["label"].copy()
+    try:
+        sites.loc[np.isin(sites["mol_id"], te), "label"] += 5.0
+        again = T.blend_unseen_types(prep, splits, pred, unseen, (pred, unseen))
+    finally:
+        sites["label"] = saved
+    np.testing.assert_array_equal(again[own], blended[own])
+    others = np.setdiff1d(np.flatnonzero(unseen & np.isfinite(pred)), own)
+    assert (again[others] != blended[others]).any()  # the fold's values do weigh the other folds

@@ -61,6 +61,29 @@ def test_site_types_the_data_does_not_cover_are_flagged(bundle):
     assert f"site type sulfonic_acid has {support} training examples" in sites.iloc[0]["warnings"]
 
 
+def test_sites_of_unseen_types_lean_towards_the_type_prior(bundle):
+    """Oxazepam's ring N-H (a 1,4-benzodiazepin-2-one anilide) is a site type without labels in the open
+    data: its prediction is blended with the catalog's typical pKa of the type by the bundle's weight;
+    sites of types with labels keep the model's value."""
+    from dataclasses import replace
+
+    from pkasite.features.sites import load_catalog
+    smiles = ["OC1N=C(c2ccccc2)c2cc(Cl)ccc2NC1=O"]
+    plain = replace(bundle, domain={**bundle.domain, "unseen_type_weight": None})
+    mixed = replace(bundle, domain={**bundle.domain, "unseen_type_weight": {"acid": 0.25, "base": 0.5}})
+    _, before = predict(plain, smiles)
+    ids, after = predict_records(mixed, ["m0"], smiles, explain=True)
+    support, prior = bundle.domain["type_support"], load_catalog().by_name
+    unseen = [support[k].get(t, 0) == 0 for k, t in zip(before["kind"], before["site_type"])]
+    assert "acyl_aminoaryl_imine_nh" in set(before["site_type"][unseen])
+    for new, old, is_unseen in zip(after.itertuples(), before.itertuples(), unseen):
+        w = {"acid": 0.25, "base": 0.5}[old.kind] if is_unseen else 1.0
+        assert new.pka == pytest.approx(w * old.pka + (1 - w) * prior[old.site_type].prior, abs=0.011)
+        assert ("no training example of type" in new.explanation) == (is_unseen and w < 1)
+    # the molecule-level constants come from the blended site values
+    assert ids.iloc[0]["macro_pkas_all"] != predict(plain, smiles)[0].iloc[0]["macro_pkas_all"]
+
+
 def test_hydroxy_drawings_of_oxo_heterocycles_are_flagged(bundle):
     """2-Hydroxypyridine, 4-hydroxyquinoline, 2-mercaptopyridine and a hydroxypyrimidine are the minor
     tautomers in water (the pyridone, quinolone and thione forms predominate: Albert and Katritzky's
