@@ -60,8 +60,9 @@ class FeatureSettings:
     type_prior    add ``type_prior``: the typical aqueous pKa the site catalog gives the site's type
                   (NaN for a type it does not list), so that trees can group types by their usual
                   strength and place a rare or unseen type among types of similar strength
-    hammett       add the ``ham_`` group: sums of Hammett substituent constants (sigma_m, sigma_p) on
-                  the six-membered aromatic ring the site sits in or on (:mod:`.hammett`)
+    hammett_kinds add the ``ham_`` group (when not empty): sums of Hammett substituent constants
+                  (sigma_m, sigma_p) on the six-membered aromatic ring the site sits in or on
+                  (:mod:`.hammett`), filled for sites of these kinds and NaN for the others
     """
 
     radii: tuple[int, ...] = (1, 2, 3)
@@ -70,7 +71,7 @@ class FeatureSettings:
     mol_fp_radius: int = 2
     use_counts: bool = True
     type_prior: bool = False   # False keeps the column layout of bundles written before it existed
-    hammett: bool = False      # likewise
+    hammett_kinds: tuple[str, ...] = ()  # likewise
 
     def __post_init__(self) -> None:
         radii = self.radii
@@ -102,9 +103,10 @@ class FeatureSettings:
         if not isinstance(self.type_prior, (bool, np.bool_)):
             raise ValueError(f"type_prior must be true or false, got {self.type_prior!r}")
         object.__setattr__(self, "type_prior", bool(self.type_prior))
-        if not isinstance(self.hammett, (bool, np.bool_)):
-            raise ValueError(f"hammett must be true or false, got {self.hammett!r}")
-        object.__setattr__(self, "hammett", bool(self.hammett))
+        hk = self.hammett_kinds
+        if isinstance(hk, str) or not all(k in KINDS for k in hk) or len(set(hk)) != len(tuple(hk)):
+            raise ValueError(f"hammett_kinds must list distinct kinds from {KINDS}, got {hk!r}")
+        object.__setattr__(self, "hammett_kinds", tuple(k for k in KINDS if k in hk))
 
     def to_dict(self) -> dict[str, Any]:
         """Plain JSON/YAML-ready dict, including the feature version."""
@@ -116,7 +118,7 @@ class FeatureSettings:
             "mol_fp_radius": self.mol_fp_radius,
             "use_counts": self.use_counts,
             "type_prior": self.type_prior,
-            "hammett": self.hammett,
+            "hammett_kinds": list(self.hammett_kinds),
         }
 
     @classmethod
@@ -129,12 +131,14 @@ class FeatureSettings:
                 f"feature settings were written for feature version {version}, this code builds "
                 f"version {FEATURES_VERSION}; re-featurize and retrain the model"
             )
-        allowed = {"radii", "n_bits", "mol_fp_bits", "mol_fp_radius", "use_counts", "type_prior", "hammett"}
+        allowed = {"radii", "n_bits", "mol_fp_bits", "mol_fp_radius", "use_counts", "type_prior", "hammett_kinds"}
         unknown = sorted(set(data) - allowed)
         if unknown:
             raise ValueError(f"unknown feature setting(s) {unknown}; allowed keys: {sorted(allowed)}")
         if "radii" in data:
             data["radii"] = tuple(data["radii"])
+        if "hammett_kinds" in data:
+            data["hammett_kinds"] = tuple(data["hammett_kinds"])
         return cls(**data)
 
 
@@ -236,8 +240,8 @@ def _layout(settings: FeatureSettings, site_types: tuple[str, ...]) -> _Layout:
     names += CHG_NAMES
     hb = len(names)
     names += HB_NAMES
-    ham = len(names) if settings.hammett else -1
-    if settings.hammett:
+    ham = len(names) if settings.hammett_kinds else -1
+    if settings.hammett_kinds:
         names += HAM_NAMES
     mol = len(names)
     names += MOL_DESC_NAMES
@@ -636,7 +640,8 @@ def featurize_sites(
             x[layout.chg:layout.chg + n_chg] = md.chg(s)
             x[layout.hb:layout.hb + n_hb] = md.hb(s)
             if layout.ham >= 0:
-                x[layout.ham:layout.ham + len(HAM_NAMES)] = hammett_row(md, s)
+                x[layout.ham:layout.ham + len(HAM_NAMES)] = (hammett_row(md, s) if kind in settings.hammett_kinds
+                                                             else np.nan)
     if not settings.use_counts and settings.radii:
         block = X[:, layout.env:layout.env + len(settings.radii) * nb]
         np.minimum(block, 1.0, out=block)

@@ -95,7 +95,8 @@ class FeaturesConfig(_Strict):
     mol_fp_radius: int = 2
     use_counts: bool = True
     type_prior: bool = True    # a column with the site catalog's typical pKa of the site's type
-    hammett: bool = False      # sums of Hammett sigma constants on the site's aromatic ring (FEATURES.md)
+    # sums of Hammett sigma constants on the site's aromatic ring, for sites of these kinds (FEATURES.md)
+    hammett_kinds: list[Literal["acid", "base"]] = Field(default_factory=list)
 
 
 class _ModelSettings(_Strict):
@@ -103,9 +104,9 @@ class _ModelSettings(_Strict):
     censored_sites: bool = True      # a molecule's other sites of the kind enter training as one-sided bounds
     microstate_targets: bool = True  # labeled sites train on value + (site - molecule constant) offsets
     # sites of a type without training labels: shrink towards the type's catalog prior by a weight fitted
-    # on the unseen-site-type CV folds (models/prior_blend.py; needs those folds; measured, not turned on:
+    # on the unseen-site-type CV folds, for sites of these kinds (models/prior_blend.py; needs those folds;
     # features/FEATURES.md)
-    unseen_type_blend: bool = False
+    unseen_type_blend: list[Literal["acid", "base"]] = Field(default_factory=list)
     assignment_rounds: int = 3       # at most this many label re-assignment rounds (0: keep catalog priors)
     assignment_stop_fraction: float = Field(0.01, ge=0, le=1)  # stop once at most this share of labels moves
     assignment_folds: int | None = Field(3, ge=2)  # molecule-grouped folds of the rounds (None: cv.folds)

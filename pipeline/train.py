@@ -35,7 +35,7 @@ def feature_settings(cfg: RunConfig) -> FeatureSettings:
     f = cfg.features
     return FeatureSettings(radii=tuple(f.radii), n_bits=f.n_bits, mol_fp_bits=f.mol_fp_bits,
                            mol_fp_radius=f.mol_fp_radius, use_counts=f.use_counts, type_prior=f.type_prior,
-                           hammett=f.hammett)
+                           hammett_kinds=tuple(f.hammett_kinds))
 
 
 @dataclass
@@ -242,23 +242,24 @@ def unseen_type_rows(prep: Prepared, splits, jobs: list[FitJob]) -> np.ndarray:
     return out
 
 
-def unseen_type_weights(prep: Prepared, site_pred: np.ndarray, unseen: np.ndarray,
+def unseen_type_weights(prep: Prepared, site_pred: np.ndarray, unseen: np.ndarray, kinds=("acid", "base"),
                         exclude_mols=()) -> dict[str, float]:
-    """Per kind, the weight of the model against the type's catalog prior on sites of unseen types
-    (:mod:`pkasite.models.prior_blend`), from the labeled ``unseen`` rows of out-of-fold predictions
-    ``site_pred`` outside the molecules ``exclude_mols``."""
+    """For each of ``kinds``, the weight of the model against the type's catalog prior on sites of unseen
+    types (:mod:`pkasite.models.prior_blend`), from the labeled ``unseen`` rows of out-of-fold
+    predictions ``site_pred`` outside the molecules ``exclude_mols``."""
     sites = prep.sites
     rows = np.flatnonzero(sites["labeled"].to_numpy() & unseen & np.isfinite(site_pred)
                           & ~np.isin(sites["mol_id"].to_numpy(), np.asarray(exclude_mols)))
-    return prior_weights(site_pred[rows], sites["prior"].to_numpy()[rows], site_targets(prep)[rows],
-                         sites["kind"].to_numpy()[rows])
+    w = prior_weights(site_pred[rows], sites["prior"].to_numpy()[rows], site_targets(prep)[rows],
+                      sites["kind"].to_numpy()[rows])
+    return {k: w[k] for k in kinds}
 
 
 def blend_unseen_types(prep: Prepared, splits, site_pred: np.ndarray, unseen: np.ndarray,
-                       reference: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
+                       reference: tuple) -> np.ndarray:
     """Out-of-fold ``site_pred`` with each fold's ``unseen`` rows blended towards their type's prior, the
-    weights taken from the unseen-site-type folds' predictions ``reference`` (site_pred, unseen) on the
-    other molecules only (cross-fitted: no test molecule's value weighs its own blend)."""
+    weights taken from the unseen-site-type folds' predictions ``reference`` (site_pred, unseen, kinds to
+    blend) on the other molecules only (cross-fitted: no test molecule's value weighs its own blend)."""
     sites = prep.sites
     out = site_pred.copy()
     for _, _, te in splits:
@@ -471,7 +472,7 @@ def cross_validate(prep: Prepared, cfg: RunConfig, clock: StageClock | None = No
             site_pred, fold, sim = site_oof(prep, splits, regs[:len(splits)], with_similarity=with_sim)
             unseen = unseen_type_rows(prep, splits, sjobs)
             if scheme == "site_type" and cfg.model.unseen_type_blend:
-                reference = (site_pred.copy(), unseen)
+                reference = (site_pred.copy(), unseen, tuple(cfg.model.unseen_type_blend))
             if reference is not None:
                 site_pred = blend_unseen_types(prep, splits, site_pred, unseen, reference)
             const = E.table_constants(prep.table, site_pred)

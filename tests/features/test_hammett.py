@@ -10,7 +10,7 @@ from pkasite.features.hammett import HAM_NAMES, SIGMA
 from pkasite.features.site_features import FeatureSettings, describe_site, site_feature_names
 from pkasite.features.sites import find_sites
 
-ON = FeatureSettings(radii=(1,), n_bits=8, mol_fp_bits=0, hammett=True)
+ON = FeatureSettings(radii=(1,), n_bits=8, mol_fp_bits=0, hammett_kinds=("acid", "base"))
 
 
 def _ham(smiles: str, kind: str, site_type: str | None = None) -> dict[str, float]:
@@ -77,11 +77,23 @@ def test_group_is_off_unless_asked_for_and_round_trips():
     off = FeatureSettings(radii=(1,), n_bits=8, mol_fp_bits=0)
     assert not any(n.startswith("ham_") for n in site_feature_names(off))
     assert [n for n in site_feature_names(ON) if n.startswith("ham_")] == list(HAM_NAMES)
-    old = {k: v for k, v in ON.to_dict().items() if k != "hammett"}
-    assert FeatureSettings.from_dict(old).hammett is False
+    old = {k: v for k, v in ON.to_dict().items() if k != "hammett_kinds"}
+    assert FeatureSettings.from_dict(old).hammett_kinds == ()
     assert FeatureSettings.from_dict(ON.to_dict()) == ON
-    with pytest.raises(ValueError, match="hammett"):
-        FeatureSettings(hammett="yes")
+    for bad in ("base", ("acid", "acid"), ("salt",)):
+        with pytest.raises(ValueError, match="hammett_kinds"):
+            FeatureSettings(hammett_kinds=bad)
+
+
+def test_group_is_filled_only_for_the_chosen_kinds():
+    base_only = FeatureSettings(radii=(1,), n_bits=8, mol_fp_bits=0, hammett_kinds=("base",))
+    mol = Chem.MolFromSmiles("Nc1ccc(cc1)C(=O)O")  # 4-aminobenzoic acid: an acid and a base site
+    for s in find_sites(mol):
+        row = describe_site(mol, s.atom, s.kind, s.type, base_only)
+        if s.kind == "base":
+            assert row["ham_link"] == 1.0 and row["ham_sigma_p"] == pytest.approx(SIGMA["cooh"][1])
+        else:
+            assert all(math.isnan(row[k]) for k in HAM_NAMES)
 
 
 def test_explanations_pool_the_group_and_word_it():

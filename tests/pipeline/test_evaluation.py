@@ -109,7 +109,7 @@ def test_unseen_type_blend_never_weighs_a_fold_with_its_own_values(fitted):
         rows = T._test_rows(prep, te)
         lab = rows[sites["labeled"].to_numpy()[rows]]
         assert unseen[lab].all()
-    blended = T.blend_unseen_types(prep, splits, pred, unseen, (pred, unseen))
+    blended = T.blend_unseen_types(prep, splits, pred, unseen, (pred, unseen, ("acid", "base")))
     moved = np.isfinite(pred) & (blended != pred)
     assert moved.any() and not (moved & ~unseen).any()
     name, _, te = splits[0]
@@ -117,7 +117,7 @@ def test_unseen_type_blend_never_weighs_a_fold_with_its_own_values(fitted):
     saved = sites["label"].copy()
     try:
         sites.loc[np.isin(sites["mol_id"], te), "label"] += 5.0
-        again = T.blend_unseen_types(prep, splits, pred, unseen, (pred, unseen))
+        again = T.blend_unseen_types(prep, splits, pred, unseen, (pred, unseen, ("acid", "base")))
     finally:
         sites["label"] = saved
     np.testing.assert_array_equal(again[own], blended[own])
