@@ -460,7 +460,7 @@ def cross_validate(prep: Prepared, cfg: RunConfig, clock: StageClock | None = No
     mols = _labels(prep)
     preds, scored, residuals = {}, {}, {}
     folds_by_scheme = {}
-    reference = None  # the unseen-site-type folds' (site_pred, unseen): weighs the prior blend
+    reference = None  # the unseen-site-type folds' (site_pred, unseen, kinds to blend): weighs the prior blend
     # the unseen-site-type folds run first, so that every scheme's unseen types can be blended
     for scheme in sorted(cfg.cv.schemes, key=lambda s: s != "site_type"):
         with clock(f"cv {scheme}" + (" + baselines" if cfg.cv.baselines else "")) as stage:
