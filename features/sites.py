@@ -76,6 +76,10 @@ class SiteType:
     source: str
     priority: int = 0
 
+    def outside(self, value: float) -> float:
+        """How far ``value`` lies outside this type's typical range ``[low, high]`` (0 inside it)."""
+        return max(self.low - value, value - self.high, 0.0)
+
 
 @dataclass(frozen=True)
 class Exclusion:
@@ -400,8 +404,7 @@ def _consistent_with(sites: list[Site], value: float, tolerance: float, by_predi
     sulfonic acid) on the strength of its own earlier mistakes.
     """
     def range_gap(site: Site) -> float:
-        t = catalog.by_name[site.type]
-        return max(t.low - value, value - t.high, 0.0)
+        return catalog.by_name[site.type].outside(value)
 
     def gap(site: Site) -> float:
         return max(range_gap(site), abs(site_value(site) - value)) if by_prediction else range_gap(site)

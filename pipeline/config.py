@@ -147,6 +147,8 @@ class CVConfig(_Strict):
 class DomainConfig(_Strict):
     target_rmse: float = 1.0         # in-domain predictions should meet this CV error
     min_type_support: int = 10
+    # a site predicted more than this outside its type's catalog range is out of domain (None: no check)
+    range_margin: float | None = Field(1.0, ge=0)
     interval_levels: list[float] = Field(default_factory=lambda: [0.8, 0.9])
 
 

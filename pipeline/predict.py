@@ -253,14 +253,20 @@ def molecule_microstates(mol: Chem.Mol, atoms, kinds, pka, priors, interactions,
                        hold=weak_sites(kinds, priors, pka, window))
 
 
-def _site_warnings(bundle: ModelBundle, site_type: str, kind: str, similarity: float) -> list[str]:
+def _site_warnings(bundle: ModelBundle, site_type, kind: str, similarity: float, pka: float) -> list[str]:
+    """Why a site is outside the applicability domain (empty: in domain).  ``site_type`` is the catalog
+    entry of the site."""
     dom = bundle.domain
     warns = []
-    support = dom["type_support"].get(kind, {}).get(site_type, 0)
+    support = dom["type_support"].get(kind, {}).get(site_type.name, 0)
     if support < dom["min_type_support"]:
-        warns.append(f"site type {site_type} has {support} training examples")
+        warns.append(f"site type {site_type.name} has {support} training examples")
     if similarity < dom["threshold"]:
         warns.append(f"nearest training site similarity {similarity:.2f}")
+    margin = dom.get("range_margin")
+    if margin is not None and site_type.outside(pka) > margin:
+        warns.append(f"predicted {pka:.1f}, outside the usual range of {site_type.name} "
+                     f"({site_type.low:g} to {site_type.high:g}); check the drawing (tautomer, charge)")
     return warns
 
 
@@ -339,7 +345,7 @@ def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4, level: fl
         site_in_domain = []
         for j in idx:
             _, atom, kind, stype = items[j]
-            sw = _site_warnings(bundle, stype, kind, sim[j])
+            sw = _site_warnings(bundle, catalog.by_name[stype], kind, sim[j], float(pka[j]))
             site_in_domain.append(not sw)
             site_rows.append({"id": rid, "atom": int(p.original_atoms[atom]) if p.original_atoms else int(atom),
                               "site_type": stype, "kind": kind, "pka": round(float(pka[j]), 2),

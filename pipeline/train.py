@@ -532,6 +532,20 @@ def domain_threshold(residuals: pd.DataFrame, target_rmse: float) -> float:
     return float(r["similarity"].to_numpy()[ok.max()])
 
 
+def range_check(residuals: pd.DataFrame, margin: float | None) -> dict:
+    """Known-site CV residuals (value-free) split by whether the prediction lies more than ``margin``
+    outside the site type's catalog range: count and RMSE of each part (empty without a margin)."""
+    r = residuals[residuals["level"] == "site"]
+    if margin is None or r.empty:
+        return {}
+    by_name = load_catalog().by_name
+    out = np.array([by_name[t].outside(p) > margin for t, p in zip(r["site_type"], r["pred"])])
+    res = r["residual"].to_numpy()
+    return {"n_outside": int(out.sum()), "n_inside": int((~out).sum()),
+            "rmse_outside": float(np.sqrt(np.mean(res[out] ** 2))) if out.any() else float("nan"),
+            "rmse_inside": float(np.sqrt(np.mean(res[~out] ** 2))) if (~out).any() else float("nan")}
+
+
 def coverage_checks(cv: CVResult, cfg: RunConfig, test_residuals: pd.DataFrame | None = None) -> pd.DataFrame:
     """Nominal against observed interval coverage, per level (site, molecule) and kind, on residuals
     the calibration never saw: cross-fitted molecule folds, the scaffold folds (calibrated on the

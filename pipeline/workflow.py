@@ -145,7 +145,8 @@ def _card(cfg: RunConfig, registry: Registry, measurements: pd.DataFrame, n_mole
         "domain_note": (f"A site is in domain when the Tanimoto similarity of its neighbourhood fingerprint to the "
                         f"nearest training site of its kind is at least {domain['threshold']:.2f} (calibrated on "
                         f"value-free known-site CV residuals so that in-domain RMSE <= {domain['target_rmse']}) and "
-                        f"its site type has at least {domain['min_type_support']} training examples. Site intervals "
+                        f"its site type has at least {domain['min_type_support']} training examples"
+                        + _range_note(domain) + ". Site intervals "
                         f"(pka_low, pka_high) and molecule intervals (acid_pka_low ... base_pka_high) are "
                         f"split-conformal by similarity bin from value-free molecule-grouped CV residuals. Observed "
                         f"coverage on data the calibration never saw: " + coverage_summary(coverage) + "."
@@ -162,6 +163,18 @@ def _card(cfg: RunConfig, registry: Registry, measurements: pd.DataFrame, n_mole
                         "that can be.",
                         "Tautomers are predicted as drawn."],
     }
+
+
+def _range_note(domain: dict) -> str:
+    margin, rc = domain.get("range_margin"), domain.get("range_check") or {}
+    if margin is None:
+        return ""
+    unit = "log unit" if margin == 1 else "log units"
+    note = f", and its prediction lies within {margin:g} {unit} of the usual range the site catalog gives its type"
+    if rc.get("n_outside"):
+        note += (f" (known-site CV residuals beyond it: {rc['n_outside']} sites, RMSE {rc['rmse_outside']:.2f}, "
+                 f"against {rc['rmse_inside']:.2f} for the other {rc['n_inside']})")
+    return note
 
 
 def _blend_note(weights: dict | None) -> str:
@@ -264,6 +277,8 @@ def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_
     support = prep.sites[lab].groupby(["kind", "site_type"]).size()
     domain = {"threshold": threshold, "target_rmse": cfg.domain.target_rmse,
               "min_type_support": cfg.domain.min_type_support,
+              "range_margin": cfg.domain.range_margin,
+              "range_check": T.range_check(cv.residuals, cfg.domain.range_margin),
               "type_support": {k: {t: int(n) for (kk, t), n in support.items() if kk == k} for k in ("acid", "base")},
               "unseen_type_weight": cv.unseen_type_weight,
               "elements": T.elements_seen(prep.table.mols),

@@ -123,3 +123,16 @@ def test_unseen_type_blend_never_weighs_a_fold_with_its_own_values(fitted):
     np.testing.assert_array_equal(again[own], blended[own])
     others = np.setdiff1d(np.flatnonzero(unseen & np.isfinite(pred)), own)
     assert (again[others] != blended[others]).any()  # the fold's values do weigh the other folds
+
+
+def test_range_check_splits_known_site_residuals_by_the_catalog_range():
+    from pkasite.features.sites import load_catalog
+    t = load_catalog().by_name["carboxylic_acid"]
+    res = pd.DataFrame({"level": ["site"] * 4 + ["molecule"],
+                        "site_type": ["carboxylic_acid"] * 5,
+                        "pred": [t.prior, t.high + 0.5, t.high + 3.0, t.low - 2.0, t.high + 5.0],
+                        "residual": [0.3, -0.4, 3.0, -4.0, 9.0]})
+    rc = T.range_check(res, 1.0)
+    assert (rc["n_outside"], rc["n_inside"]) == (2, 2)  # the molecule-level row does not count
+    assert rc["rmse_outside"] == pytest.approx(12.5 ** 0.5) and rc["rmse_inside"] == pytest.approx(0.125 ** 0.5)
+    assert T.range_check(res, None) == {}
