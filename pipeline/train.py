@@ -461,8 +461,10 @@ def cross_validate(prep: Prepared, cfg: RunConfig, clock: StageClock | None = No
     preds, scored, residuals = {}, {}, {}
     folds_by_scheme = {}
     reference = None  # the unseen-site-type folds' (site_pred, unseen, kinds to blend): weighs the prior blend
-    # the unseen-site-type folds run first, so that every scheme's unseen types can be blended
-    for scheme in sorted(cfg.cv.schemes, key=lambda s: s != "site_type"):
+    # with the prior blend the unseen-site-type folds run first, so that every scheme's unseen types can be
+    # blended; otherwise the schemes run in the configured order
+    order = sorted(cfg.cv.schemes, key=lambda s: s != "site_type") if cfg.model.unseen_type_blend else cfg.cv.schemes
+    for scheme in order:
         with clock(f"cv {scheme}" + (" + baselines" if cfg.cv.baselines else "")) as stage:
             splits = make_splits(prep, scheme, cfg)
             sjobs = site_jobs(prep, splits, cfg, unseen_type=(scheme == "site_type"))
