@@ -203,7 +203,7 @@ def _phrase(key: str, v: dict[str, float], site: str, site_type: str) -> str:
             return "no H-bond acceptor 2-5 bonds away"
         return f"H-bond acceptor {min(ds)} bonds away"
     if key == "ham":
-        if v.get("ham_link") is None or v["ham_link"] != v["ham_link"]:  # NaN: no ring within 3 bonds
+        if np.isnan(v.get("ham_link", np.nan)):  # no six-membered aromatic ring within 3 bonds
             return "no six-membered aromatic ring within 3 bonds"
         return f"ring substituents, Hammett sigma (meta + para) {v.get('ham_sigma_mp', 0.0):+.2f}"
     return "other features"

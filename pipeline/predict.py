@@ -307,12 +307,14 @@ def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4, level: fl
         X = featurize_sites(items, bundle.settings, bundle.site_types)
         kinds = np.array([it[2] for it in items])
         pka = bundle.regressor.predict(X, kinds)
-        # a site of a type without training labels leans towards the type's catalog prior
+        # with a bundle that blends, a site of a type without training labels leans towards its catalog prior
         weights = bundle.domain.get("unseen_type_weight")
-        support = bundle.domain["type_support"]
-        blended = np.array([bool(weights) and support.get(k, {}).get(t, 0) == 0 for _, _, k, t in items])
         model_pka = pka
-        pka = blend(pka, priors, blended, kinds, weights)
+        blended = np.zeros(n, bool)
+        if weights:
+            support = bundle.domain["type_support"]
+            blended = np.array([support.get(k, {}).get(t, 0) == 0 for _, _, k, t in items])
+            pka = blend(pka, priors, blended, kinds, weights)
         bits = np.stack([site_neighbourhood_bits(m, a) for m, a, _, _ in items])
         sim = np.zeros(n)
         for kind in ("acid", "base"):

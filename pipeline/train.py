@@ -229,11 +229,16 @@ def site_oof(prep: Prepared, splits, regs: list[SiteRegressor], with_similarity:
     return pred, fold, sim
 
 
+def _type_keys(sites: pd.DataFrame) -> np.ndarray:
+    """Per site row, ``kind:site_type``: what "a type with training labels" is counted by."""
+    return (sites["kind"] + ":" + sites["site_type"]).to_numpy()
+
+
 def unseen_type_rows(prep: Prepared, splits, jobs: list[FitJob]) -> np.ndarray:
     """Per site row: True for a test site of a fold whose training labels hold no site of its kind and
     type (every site of the held-out types in the unseen-site-type folds; a rare type's sites elsewhere)."""
     sites = prep.sites
-    key = (sites["kind"] + ":" + sites["site_type"]).to_numpy()
+    key = _type_keys(sites)
     labeled = sites["labeled"].to_numpy()
     out = np.zeros(len(sites), bool)
     for (_, _, te), job in zip(splits, jobs):
@@ -575,9 +580,8 @@ def heldout_site_predictions(reg: SiteRegressor, prep: Prepared, train_bits: dic
     kinds = prep.sites["kind"].to_numpy()
     site_pred = reg.predict(prep.X, kinds)
     if unseen_type_weight and train_prep is not None:
-        t = train_prep.sites
-        seen = np.unique((t["kind"] + ":" + t["site_type"]).to_numpy()[t["labeled"].to_numpy()])
-        unseen = ~np.isin((prep.sites["kind"] + ":" + prep.sites["site_type"]).to_numpy(), seen)
+        seen = _type_keys(train_prep.sites)[train_prep.sites["labeled"].to_numpy()]
+        unseen = ~np.isin(_type_keys(prep.sites), seen)
         site_pred = blend(site_pred, prep.sites["prior"].to_numpy(), unseen, kinds, unseen_type_weight)
     sim = np.full(len(kinds), np.nan)
     for kind in ("acid", "base"):
