@@ -16,6 +16,7 @@ from pathlib import Path
 import pytest
 from rdkit import Chem, RDLogger
 
+from pkasite.features.standardize import standardize_mol
 from pkasite.features.sites import (
     Assignment,
     CatalogError,
@@ -489,3 +490,29 @@ def test_dwpka_files_never_crash_and_are_covered():
     rate = 2000 / (time.perf_counter() - start)
     print(f"find_sites rate: {rate:.0f} molecules/s")
     assert rate > 500
+
+
+@pytest.mark.parametrize(
+    "name,smiles,acid_types",
+    [
+        # an O- on a positively charged N that carries no other O is an N-oxide or a nitrone: there is no
+        # proton to lose (pyridine N-oxide is a base, pKaH 0.79, CRC Handbook, from memory)
+        ("pyridine N-oxide", "[O-][n+]1ccccc1", set()),
+        ("quinoxaline 1,4-dioxide", "[O-][n+]1cc[n+]([O-])c2ccccc21", set()),
+        ("N-tert-butyl-alpha-phenylnitrone", "CC(C)(C)[N+]([O-])=Cc1ccccc1", set()),
+        ("a cyclic nitrone acid", "CC1(C(=O)O)CCC=[N+]1[O-]", {"carboxylic_acid"}),
+        # the groups these patterns are for keep their sites (1-hydroxybenzotriazole 4.6, nitronic acids
+        # 3-5; handbook knowledge, from memory)
+        ("1-hydroxybenzotriazole", "On1nnc2ccccc21", {"n_hydroxy_azole"}),
+        ("1-hydroxybenzotriazole anion", "[O-]n1nnc2ccccc21", {"n_hydroxy_azole"}),
+        ("pentane nitronic acid", "CCCCC=[N+]([O-])O", {"nitronic_acid"}),
+    ],
+)
+def test_charge_separated_oxides_have_no_acid_site(name, smiles, acid_types):
+    mol = standardize_mol(Chem.MolFromSmiles(smiles)).mol
+    acids = [s for s in find_sites(mol) if s.kind == "acid"]
+    assert {s.type for s in acids} == acid_types, f"{name}: {acids}"
+    if name == "pentane nitronic acid":  # the O-H only, not the O- beside it
+        assert [mol.GetAtomWithIdx(s.atom).GetTotalNumHs() for s in acids] == [1]
+    if "N-oxide" in name or "dioxide" in name:
+        assert {s.type for s in find_sites(mol) if s.kind == "base"} == {"aromatic_n_oxide_o"}
