@@ -1,6 +1,7 @@
 """Geometry of pairs of ionizable sites: how far apart (bonds) and whether one aromatic system joins them.
 
-These two numbers drive the site-site interaction of the microstate model
+These numbers, with how many shortest paths join the two (:func:`shortest_path_counts`), drive the
+site-site interaction of the microstate model
 (:class:`pkasite.models.microstates.InteractionModel`).  Pure functions of an RDKit molecule.
 """
 from __future__ import annotations
@@ -10,7 +11,7 @@ from collections.abc import Sequence
 import numpy as np
 from rdkit import Chem
 
-__all__ = ["aromatic_systems", "pair_geometry", "shared_charge_pairs"]
+__all__ = ["aromatic_systems", "pair_geometry", "shared_charge_pairs", "shortest_path_counts"]
 
 
 def aromatic_systems(mol: Chem.Mol) -> np.ndarray:
@@ -54,6 +55,30 @@ def pair_geometry(mol: Chem.Mol, atoms: Sequence[int], dist: np.ndarray | None =
     system = aromatic_systems(mol)[atoms]
     conj = (system[:, None] == system[None, :]) & (system[:, None] >= 0)
     return d, conj
+
+
+def shortest_path_counts(mol: Chem.Mol, atoms: Sequence[int]) -> np.ndarray:
+    """For the site atoms ``atoms``: how many distinct shortest bond paths join each pair (1 along a chain;
+    2 across a piperazine or pyrazine ring; 3 across a 1,4-diazabicyclo[2.2.2]octane cage; 0 between
+    fragments and on the diagonal)."""
+    atoms = [int(a) for a in atoms]
+    n = mol.GetNumAtoms()
+    neighbours = [[nb.GetIdx() for nb in a.GetNeighbors()] for a in mol.GetAtoms()]
+    out = np.zeros((len(atoms), len(atoms)))
+    for i, start in enumerate(atoms):
+        dist = [-1] * n
+        count = [0] * n
+        dist[start], count[start] = 0, 1
+        queue = [start]
+        for v in queue:  # breadth first; the list grows while it is read
+            for w in neighbours[v]:
+                if dist[w] < 0:
+                    dist[w], count[w] = dist[v] + 1, count[v]
+                    queue.append(w)
+                elif dist[w] == dist[v] + 1:
+                    count[w] += count[v]
+        out[i] = [count[t] if t != start else 0 for t in atoms]
+    return out
 
 
 def _amidine_partners(mol: Chem.Mol, atom: int) -> set[int]:

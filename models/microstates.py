@@ -44,7 +44,11 @@ LN10 = math.log(10.0)
 @dataclass(frozen=True)
 class InteractionModel:
     """Pair term between two charged sites ``d`` bonds apart: ``W = amplitude / d**power`` pK units,
-    times ``conjugated_factor`` when both sites sit in (or on) one aromatic ring system.
+    times ``1 + path_factor * (paths - 1)`` when ``paths`` shortest bond paths join them (two across a
+    piperazine ring, three across a bicyclo[2.2.2] cage: the charges sit closer in space than along a
+    chain of the same length, and an effect carried through several paths adds up, as in the additive
+    path rules of substituent effects), and times ``conjugated_factor`` when both sites sit in (or on)
+    one aromatic ring system.
 
     The power law stands in for the Coulomb term of the electrostatic model with a distance that
     grows with the number of bonds; its parameters are fitted (:meth:`fit`) on a calibration set of
@@ -61,44 +65,59 @@ class InteractionModel:
     # 1.421): the site model learns zwitterion-forming sites from measured macro constants, so a further
     # attraction counts the same effect twice.
     opposite_factor: float = 0.0
+    # share of the single-path term that each further shortest path adds (0 in models written before it)
+    path_factor: float = 0.0
 
-    def pair(self, distance: np.ndarray, conjugated: np.ndarray) -> np.ndarray:
+    def pair(self, distance: np.ndarray, conjugated: np.ndarray, paths=None) -> np.ndarray:
         d = np.maximum(np.asarray(distance, float), 1.0)
         w = self.amplitude / d ** self.power
+        if paths is not None:
+            w = w * (1.0 + self.path_factor * (np.maximum(np.asarray(paths, float), 1.0) - 1.0))
         return np.minimum(np.where(np.asarray(conjugated, bool), w * self.conjugated_factor, w), self.cap)
 
     @classmethod
-    def fit(cls, distance, conjugated, delta_pk) -> "InteractionModel":
-        """Least squares in log space: log W = log amplitude - power log d on the non-conjugated rows,
-        then the conjugated factor as the geometric mean ratio on the conjugated rows."""
+    def fit(cls, distance, conjugated, delta_pk, paths=None) -> "InteractionModel":
+        """Least squares in log space: log W = log amplitude - power log d on the non-conjugated rows
+        joined by one shortest path; the path factor as the mean excess per further path on the
+        non-conjugated rows with several; then the conjugated factor as the geometric mean ratio on the
+        conjugated rows."""
         d = np.asarray(distance, float)
         c = np.asarray(conjugated, bool)
         w = np.asarray(delta_pk, float)
-        if (~c).sum() < 2 or np.any(w <= 0):
-            raise ValueError("need at least two non-conjugated calibration pairs with positive interaction")
-        slope, intercept = np.polyfit(np.log(d[~c]), np.log(w[~c]), 1)
+        n = np.ones(len(d)) if paths is None else np.maximum(np.asarray(paths, float), 1.0)
+        single = ~c & (n == 1)
+        if single.sum() < 2 or np.any(w <= 0):
+            raise ValueError("need at least two non-conjugated single-path calibration pairs with positive interaction")
+        slope, intercept = np.polyfit(np.log(d[single]), np.log(w[single]), 1)
         amplitude, power, cap = float(np.exp(intercept)), float(-slope), float(w.max())
+        multi = ~c & (n > 1)
+        path_factor = 0.0
+        if multi.any():
+            plain = amplitude / d[multi] ** power
+            path_factor = max(0.0, float(np.mean((w[multi] / plain - 1.0) / (n[multi] - 1.0))))
         ratio = 1.0
         if c.any():
-            plain = amplitude / d[c] ** power
+            plain = amplitude / d[c] ** power * (1.0 + path_factor * (n[c] - 1.0))
             ratio = float(np.exp(np.mean(np.log(w[c] / plain))))
-        return cls(amplitude, power, ratio, cap, len(w))
+        return cls(amplitude, power, ratio, cap, len(w), path_factor=path_factor)
 
     @classmethod
     def from_dict(cls, d: dict) -> "InteractionModel":
         return cls(**{k: d[k] for k in ("amplitude", "power", "conjugated_factor", "cap", "n_calibration",
-                                        "opposite_factor") if k in d})
+                                        "opposite_factor", "path_factor") if k in d})
 
-    def matrix(self, distance: np.ndarray, conjugated: np.ndarray, kinds=None, shared=None) -> np.ndarray:
+    def matrix(self, distance: np.ndarray, conjugated: np.ndarray, kinds=None, shared=None,
+               paths=None) -> np.ndarray:
         """Pair matrix for sites with the given distance and conjugation matrices (zero diagonal; sites
         on one atom get zero: they are handled as exclusive, not as interacting).  With ``kinds``,
         acid-base pairs (the only ones that can carry opposite charges) are scaled by
         ``opposite_factor``.  ``shared`` marks pairs whose charged forms put charge on one common atom
         (:func:`pkasite.features.site_pairs.shared_charge_pairs`, a biguanide's two imine N): like charges
         there repel at least as strongly as any pair of the calibration set, so they get ``cap`` whatever
-        their distance."""
+        their distance.  ``paths``: the number of shortest bond paths joining each pair
+        (:func:`pkasite.features.site_pairs.shortest_path_counts`; None: one)."""
         d = np.asarray(distance, float)
-        W = self.pair(d, conjugated)
+        W = self.pair(d, conjugated, paths)
         if shared is not None:
             like = True if kinds is None else np.asarray(kinds)[:, None] == np.asarray(kinds)[None, :]
             W = np.where(np.asarray(shared, bool) & like, self.cap, W)
@@ -110,7 +129,8 @@ class InteractionModel:
 
     def to_dict(self) -> dict:
         return {"amplitude": self.amplitude, "power": self.power, "conjugated_factor": self.conjugated_factor,
-                "cap": self.cap, "n_calibration": self.n_calibration, "opposite_factor": self.opposite_factor}
+                "cap": self.cap, "n_calibration": self.n_calibration, "opposite_factor": self.opposite_factor,
+                "path_factor": self.path_factor}
 
 
 def exclusive_pairs(kinds, distance: np.ndarray, conjugated: np.ndarray | None = None) -> np.ndarray:
@@ -141,7 +161,8 @@ def default_interaction_model() -> InteractionModel:
     d = [float(r["distance"]) for r in rows]
     conj = [r["conjugated"].strip().lower() in ("1", "true", "yes") for r in rows]
     w = [abs(float(r["pk2"]) - float(r["pk1"])) - math.log10(float(r["statistical_factor"])) for r in rows]
-    return InteractionModel.fit(d, conj, w)
+    paths = [float(r.get("paths") or 1) for r in rows]
+    return InteractionModel.fit(d, conj, w, paths)
 
 
 # ----------------------------------------------------------------------------- microstates

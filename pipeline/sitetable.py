@@ -72,11 +72,12 @@ def pair_terms(mol: Chem.Mol, atoms, kinds, model) -> tuple[np.ndarray, np.ndarr
     """The pair matrix ``W`` and the exclusive pairs of the microstate model for the sites ``atoms``
     (of ``kinds``) of ``mol``, under the interaction model ``model``: the one place training and
     prediction get them from."""
-    from pkasite.features.site_pairs import pair_geometry, shared_charge_pairs
+    from pkasite.features.site_pairs import pair_geometry, shared_charge_pairs, shortest_path_counts
     from pkasite.models.microstates import exclusive_pairs
     kinds = np.asarray(kinds)
     d, conj = pair_geometry(mol, atoms)
-    return model.matrix(d, conj, kinds, shared_charge_pairs(mol, atoms)), exclusive_pairs(kinds, d, conj)
+    W = model.matrix(d, conj, kinds, shared_charge_pairs(mol, atoms), shortest_path_counts(mol, atoms))
+    return W, exclusive_pairs(kinds, d, conj)
 
 
 def measurement_rank(rec) -> int:

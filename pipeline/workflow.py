@@ -152,9 +152,10 @@ def _card(cfg: RunConfig, registry: Registry, measurements: pd.DataFrame, n_mole
                         f"coverage on data the calibration never saw: " + coverage_summary(coverage) + "."
                         + _blend_note(domain.get("unseen_type_weight"))),
         "limitations": ["Macroscopic constants and charge come from microstates whose like charged sites repel "
-                        "by a pair term that knows only the bond count between them and shared aromatic systems "
-                        "(no geometry): cage amines and rings with several short paths between two sites are "
-                        "under-coupled, and opposite charges get no extra attraction (see the README).",
+                        "by a pair term that knows only the bond count between them, how many shortest paths "
+                        "join them and shared aromatic systems (no geometry): a cis and a trans pair get the "
+                        "same term, coupling through cross-conjugated systems is under-counted, and opposite "
+                        "charges get no extra attraction (see the README).",
                         "Training labels are molecule-level constants attached to one site; the other sites of "
                         "a measured molecule enter training only as one-sided bounds (at least as weak as the "
                         "value) where their site type can hold it.",
