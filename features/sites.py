@@ -345,6 +345,23 @@ def _mapped_atoms(mol: Chem.Mol, pattern: _Pattern) -> set[int]:
     return {match[pattern.mapped] for match in matches}
 
 
+def _paired_charge(mol: Chem.Mol, atom: int) -> bool:
+    """The atom's formal charge is one half of a charge-separated neutral pair: it is bonded to an atom
+    of the opposite charge whose own charge is balanced by its neighbours (the O- of an N-oxide or a
+    nitro group, the N- and N+ of an azide, the ring n- and n+ of a sydnone).  Such a charge was never
+    a proton's: the O- of an N-oxide is no deprotonated acid, the N+ of an azide no protonated base.  A
+    real ion beside a charged atom keeps its site (a nitronate's O-: its N+ carries two O-)."""
+    a = mol.GetAtomWithIdx(int(atom))
+    q = a.GetFormalCharge()
+    if q == 0:
+        return False
+    for nb in a.GetNeighbors():
+        qn = nb.GetFormalCharge()
+        if qn * q < 0 and qn + sum(x.GetFormalCharge() for x in nb.GetNeighbors() if x.GetFormalCharge() * qn < 0) == 0:
+            return True
+    return False
+
+
 def find_sites(mol: Chem.Mol, catalog: Catalog | None = None) -> list[Site]:
     """Ionizable sites of ``mol``, sorted by atom index then kind.
 
@@ -352,7 +369,9 @@ def find_sites(mol: Chem.Mol, catalog: Catalog | None = None) -> list[Site]:
     and are never sites). Each (atom, kind) gets one site: the matching type with the highest
     priority. Atoms matched by an exclusion of that kind are not sites. Works on neutral forms,
     ions and zwitterions alike (acid patterns match the conjugate base, base patterns the
-    conjugate acid).
+    conjugate acid).  A charge that is half of a charge-separated neutral pair (:func:`_paired_charge`:
+    N-oxides, azides, mesoionic rings) is not a proton's, so an acid site never sits on such an anion
+    and a base site never on such a cation.
     """
     if mol is None:
         raise SiteError("find_sites needs an RDKit molecule, got None (unreadable SMILES?)")
@@ -368,6 +387,10 @@ def find_sites(mol: Chem.Mol, catalog: Catalog | None = None) -> list[Site]:
             key = (atom, site_type.kind)
             if key not in found and atom not in excluded[site_type.kind]:
                 found[key] = Site(atom, site_type.name, site_type.kind, site_type.prior)
+    for atom, kind in list(found):
+        charge = mol.GetAtomWithIdx(atom).GetFormalCharge()
+        if (charge < 0 if kind == "acid" else charge > 0) and _paired_charge(mol, atom):
+            del found[(atom, kind)]
     return [found[key] for key in sorted(found)]
 
 

@@ -516,3 +516,29 @@ def test_charge_separated_oxides_have_no_acid_site(name, smiles, acid_types):
         assert [mol.GetAtomWithIdx(s.atom).GetTotalNumHs() for s in acids] == [1]
     if "N-oxide" in name or "dioxide" in name:
         assert {s.type for s in find_sites(mol) if s.kind == "base"} == {"aromatic_n_oxide_o"}
+
+
+@pytest.mark.parametrize(
+    "name,smiles,expected",
+    [
+        # an azide is no base in water (alkyl azides protonate only in strong acid; handbook knowledge,
+        # from memory): zidovudine keeps its thymine N-H (pKa 9.7, from memory) and alcohol, no azide N
+        ("ethyl azide", "CCN=[N+]=[N-]", set()),
+        ("zidovudine", "Cc1cn(C2CC(N=[N+]=[N-])C(CO)O2)c(=O)[nH]c1=O",
+         {("alcohol", "acid"), ("amide_o", "base"), ("uracil_nh", "acid")}),
+        # a sydnone is mesoionic: its ring n- is no deprotonated N-H acid (common practice: sydnones
+        # are neutral, non-acidic heterocycles)
+        ("3-phenylsydnone", "O=c1c[n+](-c2ccccc2)[n-]o1", {("isoxazole_n", "base")}),
+        # a nitramine N-H is acidic (N-methylnitramine about 6.6, handbook knowledge, from memory), not
+        # a hydrazine-type base
+        ("N-methylnitramine", "CN[N+](=O)[O-]", {("nitro_amine_nh", "acid")}),
+        # real ions beside a charged atom keep their sites: a nitronate anion (its N+ carries two O-)
+        # and a betaine's carboxylate (pKa about 1.8, from memory)
+        ("nitronate", "[O-][N+]([O-])=C(CO)CO", {("nitronic_acid", "acid"), ("alcohol", "acid")}),
+        ("betaine", "C[N+](C)(C)CC(=O)[O-]", {("carboxylic_acid", "acid")}),
+        ("azobenzene", "c1ccc(N=Nc2ccccc2)cc1", {("azo_n", "base")}),
+    ],
+)
+def test_charge_separated_pairs_are_not_sites(name, smiles, expected):
+    mol = standardize_mol(Chem.MolFromSmiles(smiles)).mol
+    assert {(s.type, s.kind) for s in find_sites(mol)} == expected, name

@@ -72,10 +72,10 @@ def test_diamines_show_two_coupled_constants(predicted, name, first, second):
     assert len(got) == 2 and got[0] == pytest.approx(first, abs=0.8) and got[1] == pytest.approx(second, abs=1.5)
     # two equivalent amines: the second protonation is weaker by more than the statistical log10(4)
     assert got[0] - got[1] > np.log10(4) + 1.0
-    # mostly the monocation at pH 7.4, with some dication beside it (common practice: ionization from
-    # Henderson-Hasselbalch), and close to the charge the handbook constants give (ethylenediamine 1.22,
-    # piperazine 1.01); the approx check also bounds the charge from above
-    assert _formal_charge(m["major_species"]) == 1 and m["charge_at_ph"] > 1.0
+    # mostly the monocation at pH 7.4 (common practice: ionization from Henderson-Hasselbalch), with the
+    # charge the handbook constants give within 0.25 (ethylenediamine 1.22: a fifth dication; piperazine
+    # 1.004: under 1% dication and under 1% neutral, so its charge sits at 1 from either side)
+    assert _formal_charge(m["major_species"]) == 1
     assert m["charge_at_ph"] == pytest.approx(_dibase_charge(first, second), abs=0.25)
 
 
