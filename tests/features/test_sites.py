@@ -542,3 +542,26 @@ def test_charge_separated_oxides_have_no_acid_site(name, smiles, acid_types):
 def test_charge_separated_pairs_are_not_sites(name, smiles, expected):
     mol = standardize_mol(Chem.MolFromSmiles(smiles)).mol
     assert {(s.type, s.kind) for s in find_sites(mol)} == expected, name
+
+
+@pytest.mark.parametrize(
+    "name,tautomers,base_types",
+    [
+        # cimetidine's only constant in water is its imidazole, 6.8; a cyanoguanidine takes a proton only
+        # in strong acid (pKaH about -0.4); both values from memory. Whichever tautomer is drawn, the
+        # cyanoguanidine carries no base site.
+        ("cimetidine", ["CN=C(NCCSCc1nc[nH]c1C)NC#N", "CNC(=NC#N)NCCSCc1nc[nH]c1C"], {"imidazole_like_n"}),
+        # nitroguanidine pKaH about -0.9 (from memory)
+        ("nitroguanidine", ["NC(N)=N[N+](=O)[O-]", "N=C(N)N[N+](=O)[O-]"], set()),
+        ("N-cyanoacetamidine", ["CC(=N)NC#N", "CC(N)=NC#N"], set()),
+        # plain and acyl guanidines and amidines stay bases (guanidine 13.6, amiloride 8.7, acetamidine
+        # 12.5; handbook knowledge, from memory)
+        ("guanidine", ["NC(N)=N"], {"guanidine"}),
+        ("amiloride", ["NC(=N)NC(=O)c1nc(Cl)c(N)nc1N"], {"guanidine", "amide_o", "pyrimidine_like_n"}),
+        ("acetamidine", ["CC(=N)N"], {"amidine"}),
+    ],
+)
+def test_cyano_and_nitro_guanidines_are_not_bases(name, tautomers, base_types):
+    for smiles in tautomers:
+        mol = Chem.MolFromSmiles(smiles)
+        assert {s.type for s in find_sites(mol) if s.kind == "base"} == base_types, (name, smiles)
