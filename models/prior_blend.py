@@ -16,7 +16,7 @@ from collections.abc import Mapping
 
 import numpy as np
 
-KINDS = ("acid", "base")
+from pkasite.features.sites import KINDS
 
 
 def prior_weight(model: np.ndarray, prior: np.ndarray, target: np.ndarray) -> float:

@@ -15,7 +15,7 @@ import pandas as pd
 
 from pkasite.features.fingerprints import mol_fingerprint_counts, site_neighbourhood_bits
 from pkasite.features.site_features import FeatureSettings
-from pkasite.features.sites import load_catalog
+from pkasite.features.sites import KINDS, load_catalog
 from pkasite.models.domain import tanimoto_max
 from pkasite.models.metrics import bootstrap_metrics, point_metrics
 from pkasite.models.prior_blend import blend, prior_weights
@@ -247,7 +247,7 @@ def unseen_type_rows(prep: Prepared, splits, jobs: list[FitJob]) -> np.ndarray:
     return out
 
 
-def unseen_type_weights(prep: Prepared, site_pred: np.ndarray, unseen: np.ndarray, kinds=("acid", "base"),
+def unseen_type_weights(prep: Prepared, site_pred: np.ndarray, unseen: np.ndarray, kinds=KINDS,
                         exclude_mols=()) -> dict[str, float]:
     """For each of ``kinds``, the weight of the model against the type's catalog prior on sites of unseen
     types (:mod:`pkasite.models.prior_blend`), from the labeled ``unseen`` rows of out-of-fold
@@ -477,11 +477,12 @@ def cross_validate(prep: Prepared, cfg: RunConfig, clock: StageClock | None = No
             regs = fit_many(jobs, booster_params(cfg.model), cfg.seed)
             with_sim = scheme in ("molecule", "scaffold")
             site_pred, fold, sim = site_oof(prep, splits, regs[:len(splits)], with_similarity=with_sim)
-            unseen = unseen_type_rows(prep, splits, sjobs)
-            if scheme == "site_type" and cfg.model.unseen_type_blend:
-                reference = (site_pred.copy(), unseen, tuple(cfg.model.unseen_type_blend))
-            if reference is not None:
-                site_pred = blend_unseen_types(prep, splits, site_pred, unseen, reference)
+            if cfg.model.unseen_type_blend:
+                unseen = unseen_type_rows(prep, splits, sjobs)
+                if scheme == "site_type":
+                    reference = (site_pred.copy(), unseen, tuple(cfg.model.unseen_type_blend))
+                if reference is not None:  # without the unseen-site-type folds (--quick) nothing weighs it
+                    site_pred = blend_unseen_types(prep, splits, site_pred, unseen, reference)
             const = E.table_constants(prep.table, site_pred)
             by_model = {E.HEADLINE: E.constants_by_mol(prep.table, site_pred),
                         E.ATTRIBUTION: E.attributed_predictions(prep.sites, site_pred)}
