@@ -394,6 +394,30 @@ def find_sites(mol: Chem.Mol, catalog: Catalog | None = None) -> list[Site]:
     return [found[key] for key in sorted(found)]
 
 
+def _charged_form(mol: Chem.Mol, site: Site) -> bool:
+    """The site is drawn in its charged form: an acid as its anion, a base protonated."""
+    charge = mol.GetAtomWithIdx(site.atom).GetFormalCharge()
+    return charge < 0 if site.kind == "acid" else charge > 0
+
+
+def titrated_sites(mol: Chem.Mol, kind: str, catalog: Catalog | None = None) -> int:
+    """How many sites of ``kind`` ``mol`` is drawn with already titrated: acid sites drawn as their
+    anion, base sites drawn protonated (charge-separated pairs such as N-oxides are no sites, see
+    :func:`find_sites`).  0 when a site of the other kind is drawn charged as well: a zwitterion drawing
+    does not say which of its charges came first.
+
+    A source that draws each record as the species that gives up (acid) or takes up (base) the measured
+    proton shows, by such charges, that the record is a later constant of its kind: a carboxylate
+    drawn beside a phenol OH with an acid value is the phenol's constant.
+    """
+    if kind not in KINDS:
+        raise ValueError(f"kind must be one of {KINDS}, got {kind!r}")
+    charged = [s for s in find_sites(mol, catalog) if _charged_form(mol, s)]
+    if any(s.kind != kind for s in charged):
+        return 0
+    return len({s.atom for s in charged})
+
+
 # ----------------------------------------------------------------------------- label assignment
 
 

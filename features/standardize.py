@@ -84,6 +84,11 @@ def parse_smiles(smiles: str) -> Chem.Mol:
     return mol
 
 
+def parent_fragment(mol: Chem.Mol) -> Chem.Mol:
+    """The largest organic fragment of ``mol``, charges as drawn (counter-ions and solvent dropped)."""
+    return _tools()[0].choose(mol)
+
+
 def standardize_mol(mol: Chem.Mol, site_atom: int | None = None, with_inchikey: bool = True) -> Standardized:
     """Standardize ``mol``; ``site_atom`` (index in ``mol``) is carried through.
 
@@ -94,9 +99,9 @@ def standardize_mol(mol: Chem.Mol, site_atom: int | None = None, with_inchikey: 
     mol = Chem.Mol(mol)
     for atom in atoms_of(mol):
         atom.SetIntProp(ORIGINAL_INDEX, atom.GetIdx())
-    chooser, normalizer, uncharger = _tools()
+    _, normalizer, uncharger = _tools()
     try:
-        out = chooser.choose(mol)
+        out = parent_fragment(mol)
         out = normalizer.normalize(out)
         out = uncharger.uncharge(out)
         Chem.SanitizeMol(out)

@@ -73,6 +73,10 @@ class CurationConfig(_Strict):
     range_values: Literal["midpoint", "reject"] = "midpoint"
     max_range_width: float = 1.0
     first_constant_only: bool = False  # true: only each compound's strongest constant of a kind (rank 1)
+    # records of these kinds from a source that draws the titrating species (ingest:
+    # draws_titrating_species), drawn with n sites of their kind already charged, are at least their
+    # compound's constant n + 1 of the kind
+    charged_drawing_ranks: list[Literal["acid", "base"]] = Field(default_factory=lambda: ["base"])
     pkw: float = 14.0
     conflict_spread: float = 2.0
     conflict_action: Literal["drop", "flag"] = "drop"

@@ -182,6 +182,29 @@ def unlisted_stronger_acids(rows: pd.DataFrame) -> pd.Series:
     return extra
 
 
+def drawn_titrated_sites(rows: pd.DataFrame, kinds=("acid", "base")) -> pd.Series:
+    """Per row: how many sites of its kind its drawing shows already titrated
+    (:func:`~pkasite.features.sites.titrated_sites` on the largest fragment of ``input_smiles``), for
+    rows of ``kinds`` from a source that draws the titrating species (``draws_titrating_species``); 0
+    for the others and for drawings without a charge.  Such a record is at least its compound's
+    constant n + 1 of the kind: a base record drawn as 4-(pyrrolidin-1-yl)pyridinium is the dication's
+    constant, not the pyridine's pKaH."""
+    from pkasite.features.sites import titrated_sites
+    from pkasite.features.standardize import StructureError, parent_fragment, parse_smiles
+
+    out = pd.Series(0, index=rows.index, dtype="int64")
+    flagged = rows["draws_titrating_species"].fillna(False).astype(bool) & rows["kind"].isin(list(kinds))
+    for label, smiles, kind in zip(rows.index[flagged], rows.loc[flagged, "input_smiles"],
+                                   rows.loc[flagged, "kind"]):
+        if "+" not in smiles and "-" not in smiles:
+            continue
+        try:  # a row kept through its source's fallback drawing has no readable drawing of its own
+            out[label] = titrated_sites(parent_fragment(parse_smiles(smiles)), kind)
+        except (StructureError, ValueError, RuntimeError):
+            continue
+    return out
+
+
 def _blank(value: Any) -> bool:
     return value is None or (isinstance(value, float) and math.isnan(value)) or not str(value).strip()
 
@@ -324,6 +347,7 @@ def _curate_row(label, row: dict, cfg: CurationConfig, numbering_later: set, cac
             "in_house": bool(row["in_house"]), "input_smiles": row["smiles"], "value_text": row["value_text"],
             "group_key": row["group_key"], "constant_index": row["constant_index"],
             "constant_numbering": row.get("constant_numbering") or "",
+            "draws_titrating_species": bool(row.get("draws_titrating_species")),
             "numbering_rule_later": site_atom is None and label in numbering_later}
 
 
@@ -334,8 +358,12 @@ def _rank_constants(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFra
         return rows, []
     ranked = constant_ranks(rows)
     ranked["constant_rank"] += unlisted_stronger_acids(rows)
+    drawn = drawn_titrated_sites(rows, cfg.charged_drawing_ranks)
+    raised = ranked["constant_rank"] < drawn + 1
+    ranked["constant_rank"] = ranked["constant_rank"].where(~raised, drawn + 1)
     named = rows["site_atom"].notna()
-    rows = rows.assign(constant_rank=ranked["constant_rank"].astype(object).where(~named, None))
+    rows = rows.assign(constant_rank=ranked["constant_rank"].astype(object).where(~named, None),
+                       ranked_by_drawing=raised & ~named)
     if not cfg.first_constant_only:
         return rows, []
     later = ~named & (ranked["constant_rank"] > 1)
@@ -471,6 +499,7 @@ def _constant_counts(merged: list[dict]) -> dict:
     recovered = [r for r in merged if r["numbering_rule_later"]]
     return {
         "later_constants_kept": sum(1 for r in merged if _key(r["constant_rank"]) > 1),
+        "ranked_by_drawing": sum(1 for r in merged if r.get("ranked_by_drawing")),
         "first_constants_recovered": sum(1 for r in recovered if _key(r["constant_rank"]) == 1),
         "rows_recovered": len(recovered),
     }
@@ -506,7 +535,8 @@ def summarize(raw: pd.DataFrame, measurements: pd.DataFrame, rejects: pd.DataFra
         "measurements_by_rank": _by_rank(measurements),
         "replicate_groups": int((measurements["n"] > 1).sum()) if len(measurements) else 0,
         "flagged_conflicts": int(measurements["conflict"].sum()) if len(measurements) else 0,
-        **(constants or {"later_constants_kept": 0, "first_constants_recovered": 0, "rows_recovered": 0}),
+        **(constants or {"later_constants_kept": 0, "ranked_by_drawing": 0, "first_constants_recovered": 0,
+                         "rows_recovered": 0}),
     }
     summary["accounted"] = summary["rows_kept"] + summary["rows_rejected"] == summary["rows_in"]
     if not summary["accounted"]:
@@ -524,7 +554,8 @@ def format_summary(summary: dict) -> str:
                  + ", ".join(f"{k} {v}" for k, v in summary["measurements_by_kind"].items()))
     lines.append("  by constant rank  " + ", ".join(f"{k}: {v}" for k, v in summary["measurements_by_rank"].items()))
     lines.append(f"replicate groups   {summary['replicate_groups']:>7}")
-    lines.append(f"later constants kept {summary['later_constants_kept']:>5}  (rank 2 or more of their kind)")
+    lines.append(f"later constants kept {summary['later_constants_kept']:>5}  (rank 2 or more of their kind; "
+                 f"{summary.get('ranked_by_drawing', 0)} of them ranked by a drawing with a site already titrated)")
     lines.append(f"rows recovered     {summary['rows_recovered']:>7}  (kept, rejected by the former numbering rule; "
                  f"{summary['first_constants_recovered']} of them rank 1)")
     if summary["flagged_conflicts"]:

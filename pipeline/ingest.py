@@ -15,8 +15,11 @@ import pandas as pd
 RAW_COLUMNS = [
     "source", "file", "row", "record_id", "smiles", "smiles_fallback", "kind", "value_text", "is_pkb",
     "constant_index", "constant_numbering", "group_key", "temperature_text", "method", "site_atom", "licence",
-    "non_aqueous", "pressure", "assessment", "split", "in_house",
+    "non_aqueous", "pressure", "assessment", "split", "in_house", "draws_titrating_species",
 ]
+# draws_titrating_species: the source draws each record as the species that gives up (acid) or takes
+# up (base) the measured proton, so a site of the record's kind drawn charged is already titrated and
+# the record is a later constant of its kind (curation.charged_drawing_ranks).
 
 # How a source numbers a compound's constants (``constant_numbering``; empty when it does not):
 WHOLE_COMPOUND = "whole_compound"  # 1, 2, ... from the most acidic over all constants of the compound, any kind
@@ -64,6 +67,7 @@ def _read_csv(path: Path) -> pd.DataFrame:
 
 def _frame(rows: dict, n: int) -> pd.DataFrame:
     rows.setdefault("smiles_fallback", [""] * n)
+    rows.setdefault("draws_titrating_species", [False] * n)
     out = pd.DataFrame({col: rows.get(col, [None] * n) for col in RAW_COLUMNS})
     out["row"] = out["row"].astype(int)
     return out
@@ -98,6 +102,9 @@ def parse_dwpka(path: Path, kind: str, split: str | None, licence: str, source: 
         "temperature_text": df["temp"].tolist(),
         "method": df["method"].tolist(), "licence": [licence] * n, "non_aqueous": [""] * n,
         "pressure": [""] * n, "assessment": [""] * n, "split": [split] * n, "in_house": [False] * n,
+        # the compilation draws the acid form of an acid's step and the base form of a base's step (a
+        # boronic acid's second constant is filed under the boronate anion, record 11489)
+        "draws_titrating_species": [True] * n,
     }, n)
 
 

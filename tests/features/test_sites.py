@@ -27,6 +27,7 @@ from pkasite.features.sites import (
     assignment_confidence,
     find_sites,
     load_catalog,
+    titrated_sites,
 )
 
 RDLogger.DisableLog("rdApp.*")
@@ -565,3 +566,29 @@ def test_cyano_and_nitro_guanidines_are_not_bases(name, tautomers, base_types):
     for smiles in tautomers:
         mol = Chem.MolFromSmiles(smiles)
         assert {s.type for s in find_sites(mol) if s.kind == "base"} == base_types, (name, smiles)
+
+
+@pytest.mark.parametrize("name,smiles,kind,expected", [
+    # a carboxylate drawn beside a phenol OH: one acid site already titrated
+    ("salicylate", "O=C([O-])c1ccccc1O", "acid", 1),
+    ("citrate trianion", "OC(CC(=O)[O-])(CC(=O)[O-])C(=O)[O-]", "acid", 3),
+    # a protonated pyridine N of a 4-aminopyridine: its next constant is the dication's
+    ("4-(pyrrolidin-1-yl)pyridinium", "[NH+]1=CC=C(N2CCCC2)C=C1", "base", 1),
+    ("ethylenediammonium", "[NH3+]CC[NH3+]", "base", 2),
+    # a zwitterion drawing does not say which charge came first
+    ("glycine zwitterion, acid", "[NH3+]CC(=O)[O-]", "acid", 0),
+    ("glycine zwitterion, base", "[NH3+]CC(=O)[O-]", "base", 0),
+    # charge-separated groups are no titrated sites
+    ("pyridine N-oxide", "[O-][n+]1ccccc1", "base", 0),
+    ("4-nitrophenol", "[O-][N+](=O)c1ccc(O)cc1", "acid", 0),
+    # a charge of the other kind only
+    ("ethylammonium, acid record", "CC[NH3+]", "acid", 0),
+    ("benzoic acid", "OC(=O)c1ccccc1", "acid", 0),
+])
+def test_titrated_sites_counts_sites_drawn_in_their_charged_form(name, smiles, kind, expected):
+    assert titrated_sites(Chem.MolFromSmiles(smiles), kind) == expected, name
+
+
+def test_titrated_sites_needs_a_kind():
+    with pytest.raises(ValueError, match="kind"):
+        titrated_sites(Chem.MolFromSmiles("CC(=O)[O-]"), "zwitterion")

@@ -12,7 +12,7 @@ import pytest
 from rdkit import Chem
 
 from pkasite.pipeline.config import CurationConfig
-from pkasite.pipeline.curate import RANK_INPUT_COLUMNS, constant_ranks, curate
+from pkasite.pipeline.curate import RANK_INPUT_COLUMNS, constant_ranks, curate, format_summary
 from pkasite.pipeline.ingest import PER_KIND, WHOLE_COMPOUND, parse_inhouse, parse_iupac
 
 from conftest import DATA
@@ -185,3 +185,57 @@ def test_unlisted_stronger_acid_constants_move_the_rank():
                          "smiles": ["OC(=O)c1ccc(O)cc1", "Nc1ccc(O)cc1"]})
     # 4-hydroxybenzoic acid (two acid sites, no base site) and 4-aminophenol (an aniline base site)
     assert unlisted_stronger_acids(rows).tolist() == [1, 0]
+
+
+def _drawn_rows(flag: bool):
+    """INVENTED values on real structures, in a source that draws the titrating species when ``flag``:
+    an acid record drawn as the salicylate anion (its carboxylate already titrated), a base record drawn
+    as 4-(pyrrolidin-1-yl)pyridinium, a base record drawn as the glycine zwitterion, and a neutral
+    drawing."""
+    from pkasite.pipeline.ingest import RAW_COLUMNS
+    base = {"source": "s", "file": "s.csv", "smiles_fallback": "", "is_pkb": False, "constant_index": None,
+            "constant_numbering": WHOLE_COMPOUND, "temperature_text": "25", "method": "", "site_atom": None,
+            "licence": "L", "non_aqueous": "", "pressure": "", "assessment": "", "split": None,
+            "in_house": False, "draws_titrating_species": flag}
+    rows = [("O=C([O-])c1ccccc1O", "acid", "13.0"), ("[NH+]1=CC=C(N2CCCC2)C=C1", "base", "-0.5"),
+            ("[NH3+]CC(=O)[O-]", "base", "9.5"), ("OC(=O)c1ccccc1", "acid", "4.2")]
+    return pd.DataFrame([{**base, "row": i, "record_id": f"r{i}", "group_key": f"k{i}", "smiles": s,
+                          "kind": k, "value_text": v} for i, (s, k, v) in enumerate(rows, start=1)])[RAW_COLUMNS]
+
+
+def test_a_site_drawn_titrated_makes_the_record_a_later_constant():
+    res = curate(_drawn_rows(True), CurationConfig(charged_drawing_ranks=["acid", "base"]))
+    m = res.measurements.set_index("members")
+    # the anion's acid value is the phenol's (second) constant, the pyridinium's base value the
+    # dication's; the zwitterion and the neutral drawing say nothing about the order
+    assert m["constant_rank"].to_dict() == {"s:r1": 2, "s:r2": 2, "s:r3": 1, "s:r4": 1}
+    assert res.summary["ranked_by_drawing"] == 2
+    assert "2 of them ranked by a drawing" in format_summary(res.summary)
+
+
+def test_by_default_only_base_records_are_ranked_by_their_drawing():
+    res = curate(_drawn_rows(True), CurationConfig())
+    m = res.measurements.set_index("members")
+    assert m["constant_rank"].to_dict() == {"s:r1": 1, "s:r2": 2, "s:r3": 1, "s:r4": 1}
+    assert res.summary["ranked_by_drawing"] == 1
+
+
+def test_charged_drawings_rank_nothing_for_other_sources_or_when_off():
+    other_source = curate(_drawn_rows(False), CurationConfig(charged_drawing_ranks=["acid", "base"]))
+    off = curate(_drawn_rows(True), CurationConfig(charged_drawing_ranks=[]))
+    for res in (other_source, off):
+        assert set(res.measurements["constant_rank"]) == {1} and res.summary["ranked_by_drawing"] == 0
+
+
+@pytest.mark.slow
+def test_compilation_records_drawn_titrated_are_later_constants(curated, mirror):
+    """The compilation files 4-(pyrrolidin-1-yl)pyridine's -0.53 (record 13836) under the pyridinium
+    cation: the constant of the second protonation.  4-(morpholin-4-yl)pyridine's 8.79 (11091, drawn
+    neutral) is its first.  Handbook scale for 4-aminopyridines' first constant: 4-(dimethylamino)pyridine
+    9.6-9.7 (Albert, Goldacre and Phillips 1948; from memory)."""
+    rows = _dwpka_rows(mirror, "basic").loc[["13836", "11091"]]
+    assert rows["OriginalSmiles"].str.contains(r"\[NH\+\]").tolist() == [True, False]
+    m = curated.result.measurements.set_index("members")
+    assert m.loc["dwpka:13836", "constant_rank"] == 2 and m.loc["dwpka:11091", "constant_rank"] == 1
+    assert m.loc["dwpka:11091", "pka"] == pytest.approx(8.79)
+    assert curated.result.summary["ranked_by_drawing"] > 0

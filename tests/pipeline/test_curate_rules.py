@@ -18,7 +18,8 @@ CFG = CurationConfig()
 def raw(*rows: dict) -> pd.DataFrame:
     base = {"source": "t", "file": "t.csv", "smiles_fallback": "", "is_pkb": False, "constant_index": None,
             "constant_numbering": "", "group_key": None, "temperature_text": "25", "method": "", "site_atom": None, "licence": "L",
-            "non_aqueous": "", "pressure": "", "assessment": "", "split": None, "in_house": False}
+            "non_aqueous": "", "pressure": "", "assessment": "", "split": None, "in_house": False,
+            "draws_titrating_species": False}
     out = []
     for i, r in enumerate(rows, start=1):
         rec = {**base, "row": i, "record_id": f"r{i}", **r}

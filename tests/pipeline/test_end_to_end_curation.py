@@ -17,10 +17,13 @@ def test_funnel_counts(curated):
                                        "temperature_unclear": 2, "conflicting_replicates": 2}
     assert s["measurements"] == 6679 and s["measurements_by_kind"] == {"acid": 3149, "base": 3530}
     # constants ranked by value within each compound: the 467 rows the former numbering rule rejected
-    # as later constants are kept, 436 of them as their compound's strongest constant of the kind; 29
-    # acid rows whose numbering implies unlisted stronger acids (no base site) rank 2 or more
-    assert s["measurements_by_rank"] == {"1": 6648, "2": 25, "3": 5, "4": 1}
-    assert (s["rows_recovered"], s["first_constants_recovered"], s["later_constants_kept"]) == (467, 436, 31)
+    # as later constants are kept, 428 of them as their compound's strongest constant of the kind; 29
+    # acid rows whose numbering implies unlisted stronger acids (no base site) rank 2 or more, and 63
+    # base rows drawn with a base site already protonated rank after it (31 later constants without
+    # the drawing rule, 436 of the recovered rows rank 1)
+    assert s["measurements_by_rank"] == {"1": 6585, "2": 88, "3": 5, "4": 1}
+    assert (s["rows_recovered"], s["first_constants_recovered"], s["later_constants_kept"]) == (467, 428, 94)
+    assert s["ranked_by_drawing"] == 63
     assert s["accounted"]
 
 
