@@ -180,7 +180,8 @@ class Microstates:
 
     ``pka``, ``kinds`` per site; ``W`` the symmetric pair matrix (pK units; zero: independent);
     ``exclusive`` pairs (:func:`exclusive_pairs`) are never charged at once; ``window`` the titration
-    window used to pick sites to hold when there are too many.
+    window used to pick sites to hold when there are too many; ``hold`` sites stay uncharged
+    (:func:`weak_sites`), ``hold_charged`` sites stay charged (:func:`strong_sites`).
     """
 
     pka: np.ndarray
@@ -189,6 +190,7 @@ class Microstates:
     window: tuple[float, float] = (0.0, 14.0)
     exclusive: np.ndarray | None = None
     hold: np.ndarray | None = None
+    hold_charged: np.ndarray | None = None
     held: list[int] = field(default_factory=list, init=False)
 
     def __post_init__(self):
@@ -200,6 +202,8 @@ class Microstates:
         # sites to hold fixed: farthest outside the window first
         centre = 0.5 * (self.window[0] + self.window[1])
         free = np.ones(n, bool) if self.hold is None else ~np.asarray(self.hold, bool)
+        if self.hold_charged is not None:
+            free &= ~np.asarray(self.hold_charged, bool)
         if free.sum() > MAX_EXACT_SITES:
             order = [i for i in np.argsort(-np.abs(self.pka - centre), kind="stable") if free[i]]
             for i in order[: int(free.sum()) - MAX_EXACT_SITES]:
@@ -210,6 +214,8 @@ class Microstates:
         held_bound = self.pka > centre
         if self.hold is not None:
             held_bound = np.where(np.asarray(self.hold, bool), acid, held_bound)
+        if self.hold_charged is not None:  # strong sites: acids without their proton, bases with one
+            held_bound = np.where(np.asarray(self.hold_charged, bool), ~acid, held_bound)
         held_q = np.where(acid, np.where(held_bound, 0.0, -1.0), np.where(held_bound, 1.0, 0.0))
         idx = np.flatnonzero(free)
         k = len(idx)
@@ -314,26 +320,47 @@ class Microstates:
         return float(sel[rank - 1]) if len(sel) >= rank else float("nan")
 
 
-def weak_sites(kinds, priors, pka, window: tuple[float, float] = (0.0, 14.0), margin: float = 3.0) -> np.ndarray:
-    """Sites held in their uncharged form: a site type whose catalog prior lies outside the window
-    (alcohols, indole and azole N-H, amide and thioamide O/S, ...) when the molecule has another site of
-    the same kind of an ordinary type, or when the site's own prediction is not well inside the window
-    (an acid above ``window_high - margin``, a base below ``window_low + margin``).
-
-    Such sites have few training examples and their predictions are the least certain; left free, an
-    alcohol next to a carboxylic acid, or an amide oxygen, would pose as a constant in the titration
-    range.  A lone weak site predicted well inside the window stays free.
-    """
+def _held(kinds, priors, pka, window, margin: float, weak: bool) -> np.ndarray:
+    """Sites of a type whose catalog prior lies beyond the window on their weak side (``weak``: an acid
+    above it, a base below it) or their strong side (an acid below it, a base above it), held when the
+    molecule has another site of the same kind of an ordinary type or when the site's own prediction
+    is not well inside the window on that side."""
     k = np.asarray(kinds)
     prior = np.asarray(priors, float)
     p = np.asarray(pka, float)
     lo, hi = window
     outside = (prior < lo) | (prior > hi)
+    beyond_high = (k == "acid") == weak  # weak acids and strong bases lie above the window
+    side = np.where(beyond_high, prior > hi, prior < lo)
     same_kind = k[:, None] == k[None, :]
     np.fill_diagonal(same_kind, False)
     ordinary_sibling = (same_kind & ~outside[None, :]).any(axis=1)
-    edge = np.where(k == "acid", p > hi - margin, p < lo + margin)
-    return outside & (ordinary_sibling | edge)
+    edge = np.where(beyond_high, p > hi - margin, p < lo + margin)
+    return side & (ordinary_sibling | edge)
+
+
+def weak_sites(kinds, priors, pka, window: tuple[float, float] = (0.0, 14.0), margin: float = 3.0) -> np.ndarray:
+    """Sites held in their uncharged form: a weak site type whose catalog prior lies outside the window
+    (acids above it: alcohols, indole and azole N-H; bases below it: amide and thioamide O/S, ...) when
+    the molecule has another site of the same kind of an ordinary type, or when the site's own
+    prediction is not well inside the window (an acid above ``window_high - margin``, a base below
+    ``window_low + margin``).
+
+    Such sites have few training examples and their predictions are the least certain; left free, an
+    alcohol next to a carboxylic acid, or an amide oxygen, would pose as a constant in the titration
+    range.  A lone weak site predicted well inside the window stays free.
+    """
+    return _held(kinds, priors, pka, window, margin, weak=True)
+
+
+def strong_sites(kinds, priors, pka, window: tuple[float, float] = (0.0, 14.0), margin: float = 3.0) -> np.ndarray:
+    """Sites held in their charged form: a strong site type whose catalog prior lies outside the window
+    (acids below it: sulfonic acids, sulfate monoesters; bases above it), on the same conditions as
+    :func:`weak_sites` (an acid predicted below ``window_low + margin``, a base above
+    ``window_high - margin``).  A sulfonic acid is an anion throughout the window; its constant is
+    almost never measured, so the training data hold little to pin its prediction, and left free
+    beside a phenol it would pose as a constant in the titration range."""
+    return _held(kinds, priors, pka, window, margin, weak=False)
 
 
 # ----------------------------------------------------------------------------- independent-site helpers

@@ -43,7 +43,7 @@ def molecule_constants(sites: pd.DataFrame, site_pred: np.ndarray, given_atom: n
     rank-th strongest candidate site.  Reads ``mol_id``, ``kind``, ``atom`` and, when present, ``role``
     and ``rank``; never the value or the site it was attached to.
     """
-    from pkasite.models.microstates import Microstates, weak_sites
+    from pkasite.models.microstates import Microstates, strong_sites, weak_sites
     interactions = interactions or {}
     prior = sites["prior"].to_numpy() if "prior" in sites.columns else np.full(len(sites), 7.0)
     mol = sites["mol_id"].to_numpy()
@@ -90,7 +90,9 @@ def molecule_constants(sites: pd.DataFrame, site_pred: np.ndarray, given_atom: n
             else:
                 ex = (atom[ok][:, None] == atom[ok][None, :]) & (kind[ok][:, None] != kind[ok][None, :])
             hold = weak_sites(kind[ok], prior[ok], pred[ok])
-            c = Microstates(pred[ok], kind[ok], W, exclusive=ex, hold=hold).constant_of_kind(k, r)
+            hold_charged = strong_sites(kind[ok], prior[ok], pred[ok])
+            c = Microstates(pred[ok], kind[ok], W, exclusive=ex, hold=hold,
+                            hold_charged=hold_charged).constant_of_kind(k, r)
             if np.isfinite(c):
                 value = c
         out_mol.append(m), out_pred.append(value), out_row.append(row)

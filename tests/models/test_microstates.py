@@ -36,7 +36,7 @@ def test_glycine_like_zwitterion_at_physiological_ph():
 # ----------------------------------------------------------------------------- interacting sites
 
 from pkasite.models.microstates import (InteractionModel, Microstates, default_interaction_model,  # noqa: E402
-                                        exclusive_pairs, read_calibration, weak_sites)
+                                        exclusive_pairs, read_calibration, strong_sites, weak_sites)
 
 
 def _pair(w: float) -> np.ndarray:
@@ -86,6 +86,31 @@ def test_weak_site_types_are_held_beside_ordinary_sites_of_their_kind():
     # a lone alcohol near the top of the window, or an amide O near the bottom, is held
     assert list(weak_sites(["acid"], [15.5], [12.2])) == [True]
     assert list(weak_sites(["base"], [-0.5], [1.5])) == [True]
+
+
+def test_strong_site_types_are_held_charged_beside_ordinary_sites_of_their_kind():
+    # 4-hydroxybenzenesulfonic acid: a sulfonic acid (prior -1.9) mispredicted at 4.9 beside a phenol
+    # (prior 9.9); the sulfonic acid is no weak site, it is held as the anion (benzenesulfonic acid about
+    # -2.8, Guthrie, Can. J. Chem. 1978; phenol of the sulfonate about 9.1, CRC; both from memory)
+    kinds, priors, pka = ["acid", "acid"], [-1.9, 9.9], [4.9, 9.1]
+    assert list(strong_sites(kinds, priors, pka)) == [True, False]
+    assert list(weak_sites(kinds, priors, pka)) == [False, False]
+    ms = Microstates(pka, kinds, hold=weak_sites(kinds, priors, pka), hold_charged=strong_sites(kinds, priors, pka))
+    # one constant in the window, the phenol's; charge -1 at pH 7.4 and no neutral form
+    assert ms.macro_constants()[0] == pytest.approx([9.1])
+    assert ms.mean_charge(7.4) == pytest.approx(-1.0, abs=0.02)
+    assert ms.neutral_fraction(7.4) == 0.0
+    # its charge still acts on the phenol through the pair term
+    W = _pair(0.5)
+    pulled = Microstates(pka, kinds, W, hold_charged=np.array([True, False]))
+    assert pulled.macro_constants()[0] == pytest.approx([9.6])
+    # a lone sulfonic acid predicted near the bottom of the window is held; a protonated-amine-like
+    # strong base (prior above the window) likewise, on its own side
+    assert list(strong_sites(["acid"], [-1.9], [-1.0])) == [True]
+    assert list(strong_sites(["acid"], [-1.9], [5.0])) == [False]
+    assert list(strong_sites(["base"], [14.5], [12.5])) == [True]
+    # weak-side types are never held charged
+    assert list(strong_sites(["acid", "acid", "base"], [4.2, 15.5, -0.5], [2.2, 8.0, 1.5])) == [False, False, False]
 
 
 def test_many_sites_hold_the_farthest_ones_and_keep_their_charge():
