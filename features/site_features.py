@@ -29,6 +29,7 @@ from rdkit.Chem import rdMolDescriptors, rdPartialCharges
 from .fingerprints import MAX_RADIUS, mol_fingerprint_counts, site_environment_ids
 from .graph import atoms_of, bonds_of
 from .hammett import HAM_NAMES, hammett_row
+from .sites import KINDS
 
 __all__ = [
     "FEATURES_VERSION",
@@ -42,7 +43,6 @@ __all__ = [
 #: Bump when the meaning or order of columns changes; stored in model bundles.
 FEATURES_VERSION = 1
 
-KINDS = ("acid", "base")
 OTHER_TYPE = "other"
 
 # --------------------------------------------------------------------------- settings

@@ -27,10 +27,10 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from pkasite.features.sites import KINDS
+
 if TYPE_CHECKING:
     import lightgbm as lgb
-
-KINDS = ("acid", "base")
 
 
 def lightgbm_module():

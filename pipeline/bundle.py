@@ -18,6 +18,7 @@ import numpy as np
 import pandas as pd
 
 from pkasite.features.site_features import FeatureSettings
+from pkasite.features.sites import KINDS
 from pkasite.models.calibration import ConformalCalibrator
 from pkasite.models.microstates import InteractionModel
 
@@ -184,7 +185,7 @@ def render_model_card(card: dict) -> str:
     held = card.get("heldout") or {}
     if held:
         lines += ["", "## Held-out evaluation (value-free)", ""]
-        for kind in ("acid", "base"):
+        for kind in KINDS:
             if f"test_rmse_{kind}" in held:
                 lines.append(f"- {kind}: n {held.get(f'test_n_{kind}')}, RMSE {held[f'test_rmse_{kind}']:.3f} "
                              f"(95% CI {held.get(f'test_rmse_low_{kind}', float('nan')):.3f}-"

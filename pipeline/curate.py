@@ -15,6 +15,7 @@ from typing import Any, NamedTuple
 import numpy as np
 import pandas as pd
 
+from pkasite.features.sites import KINDS
 from pkasite.features.standardize import StructureError, standardize_smiles
 
 from .config import CurationConfig
@@ -182,7 +183,7 @@ def unlisted_stronger_acids(rows: pd.DataFrame) -> pd.Series:
     return extra
 
 
-def drawn_titrated_sites(rows: pd.DataFrame, kinds=("acid", "base")) -> pd.Series:
+def drawn_titrated_sites(rows: pd.DataFrame, kinds=KINDS) -> pd.Series:
     """Per row: how many sites of its kind its drawing shows already titrated
     (:func:`~pkasite.features.sites.titrated_sites` on the largest fragment of ``input_smiles``), for
     rows of ``kinds`` from a source that draws the titrating species (``draws_titrating_species``); 0
@@ -318,7 +319,7 @@ def _reject_row(row: dict, reason: str, detail: str) -> dict:
 
 def _curate_row(label, row: dict, cfg: CurationConfig, numbering_later: set, cache: dict) -> dict:
     """One raw row through every row-level check; its constant rank is set afterwards."""
-    if row["kind"] not in ("acid", "base"):
+    if row["kind"] not in KINDS:
         raise Reject("kind_invalid", f"kind {row['kind']!r} is not acid or base")
     value = parse_value(row["value_text"], cfg)
     if row["is_pkb"]:

@@ -22,6 +22,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from pkasite.features.sites import KINDS
 from pkasite.models.calibration import ConformalCalibrator
 from pkasite.models.domain import similarity_bin
 
@@ -165,7 +166,7 @@ def fit_calibrator(residuals: pd.DataFrame, level: str, levels) -> ConformalCali
 def _coverage_summary(r: pd.DataFrame, half: dict, where: str, level: str, seed: int, n_boot: int) -> list[dict]:
     """Per kind and nominal level: observed share of |residual| <= half width, bootstrap 95% interval."""
     out = []
-    for kind in ("acid", "base"):
+    for kind in KINDS:
         sel = (r["kind"] == kind).to_numpy()
         if sel.sum() < 10:
             continue

@@ -22,7 +22,7 @@ from rdkit.Chem import Descriptors
 from pkasite.features.fingerprints import site_neighbourhood_bits
 from pkasite.features.graph import atoms_of
 from pkasite.features.site_features import featurize_sites
-from pkasite.features.sites import find_sites, load_catalog
+from pkasite.features.sites import KINDS, find_sites, load_catalog
 from pkasite.features.standardize import LACTIM_WARNING, StructureError, lactim_drawing, quiet_rdkit, standardize_mol
 from pkasite.models.domain import similarity_bin, tanimoto_max
 from pkasite.models.microstates import (MAX_EXACT_SITES, Microstates, default_interaction_model, strong_sites,
@@ -319,7 +319,7 @@ def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4, level: fl
             pka = blend(pka, priors, blended, kinds, weights)
         bits = np.stack([site_neighbourhood_bits(m, a) for m, a, _, _ in items])
         sim = np.zeros(n)
-        for kind in ("acid", "base"):
+        for kind in KINDS:
             sel = kinds == kind
             if sel.any() and kind in bundle.train_bits:
                 sim[sel] = tanimoto_max(bits[sel], bundle.train_bits[kind])

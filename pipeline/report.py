@@ -28,6 +28,7 @@ from matplotlib.figure import Figure
 from rdkit import Chem
 from rdkit.Chem.Draw import rdMolDraw2D
 
+from pkasite.features.sites import KINDS
 from pkasite.models.calibration import ConformalCalibrator
 from pkasite.models.domain import similarity_bin
 from pkasite.models.splits import group_kfold
@@ -257,7 +258,7 @@ def worst_predictions(bundle: ModelBundle, n: int = N_WORST) -> pd.DataFrame:
     items, where = [], []
     for i, row in worst.iterrows():
         mol = Chem.MolFromSmiles(row["smiles"])
-        if mol is not None and row["site_atom"] is not None and row["kind"] in ("acid", "base"):
+        if mol is not None and row["site_atom"] is not None and row["kind"] in KINDS:
             stype = row.get("pred_site_type") or row["site_type"]
             items.append((mol, int(row["site_atom"]), row["kind"], stype))
             where.append(i)
@@ -310,7 +311,7 @@ def _summary(bundle: ModelBundle) -> str:
             if b in base.index:
                 cards.append((f"RMSE {MODEL_LABELS[b]}", f"{base.loc[b].rmse:.2f}"))
     held = card.get("heldout") or {}
-    for kind in ("acid", "base"):
+    for kind in KINDS:
         if f"test_rmse_{kind}" in held:
             cards.append((f"held-out test RMSE, {kind}", f"{held[f'test_rmse_{kind}']:.2f}"))
     cov = bundle.coverage
@@ -460,7 +461,7 @@ def _parity(bundle: ModelBundle) -> str:
     if cvp is None:
         return _missing("Out-of-fold predictions")
     d = cvp[(cvp.scheme == "molecule")].dropna(subset=["pred_site_model", "label"])
-    kinds = [k for k in ("acid", "base") if (d.kind == k).any()]
+    kinds = [k for k in KINDS if (d.kind == k).any()]
     fig, axes = _new_fig(5 * max(1, len(kinds)), 4.8, ncols=max(1, len(kinds)))
     for ax, kind in zip(axes, kinds):
         s = d[d.kind == kind]

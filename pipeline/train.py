@@ -221,7 +221,7 @@ def site_oof(prep: Prepared, splits, regs: list[SiteRegressor], with_similarity:
         fold[rows] = name
         if with_similarity:
             train_rows = np.flatnonzero(sites["labeled"].to_numpy() & np.isin(sites["mol_id"].to_numpy(), tr))
-            for kind in ("acid", "base"):
+            for kind in KINDS:
                 q = rows[kinds[rows] == kind]
                 t = train_rows[kinds[train_rows] == kind]
                 if len(q):
@@ -429,7 +429,7 @@ def metric_table(mols: pd.DataFrame, pred_by_mol: dict[str, np.ndarray], cfg: Ru
     y = mols["label"].to_numpy()
     ids = mols["mol_id"].to_numpy()
     subsets = [("overall", np.ones(len(mols), bool))]
-    subsets += [(f"kind:{k}", (mols["kind"] == k).to_numpy()) for k in ("acid", "base")]
+    subsets += [(f"kind:{k}", (mols["kind"] == k).to_numpy()) for k in KINDS]
     subsets += [(f"type:{t}", (mols["site_type"] == t).to_numpy()) for t in sorted(mols["site_type"].unique())]
     for model, pred in pred_by_mol.items():
         p = pred[ids]
@@ -585,7 +585,7 @@ def heldout_site_predictions(reg: SiteRegressor, prep: Prepared, train_bits: dic
         unseen = ~np.isin(_type_keys(prep.sites), seen)
         site_pred = blend(site_pred, prep.sites["prior"].to_numpy(), unseen, kinds, unseen_type_weight)
     sim = np.full(len(kinds), np.nan)
-    for kind in ("acid", "base"):
+    for kind in KINDS:
         sel = kinds == kind
         if sel.any() and kind in train_bits:
             sim[sel] = tanimoto_max(prep.bits[sel], train_bits[kind])
@@ -618,7 +618,7 @@ def evaluate_holdout(reg: SiteRegressor, measurements: pd.DataFrame, cfg: RunCon
     base_pred = np.full(len(prep.mol_X), np.nan)
     base_pred[mols["mol_id"]] = base.predict(prep.mol_X[mols["mol_id"]], mols["kind"].to_numpy())
     out = {"n_heldout": int(len(measurements)), "n_heldout_no_site": int(len(prep.table.rejects))}
-    for kind in ("acid", "base"):
+    for kind in KINDS:
         sel = mols[mols["kind"] == kind]
         if len(sel) < 2:
             continue

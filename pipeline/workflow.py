@@ -16,6 +16,8 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
+from pkasite.features.sites import KINDS
+
 from .config import Registry, RunConfig, load_registry
 from .curate import CurationResult, curate, format_summary
 from .ingest import PARSERS, parse_inhouse
@@ -274,13 +276,13 @@ def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_
         stage.note = "started after label assignment, alongside cross-validation; this is the wait"
     lab = prep.sites["labeled"].to_numpy()
     kinds = prep.sites["kind"].to_numpy()
-    train_bits = {k: prep.bits[lab & (kinds == k)] for k in ("acid", "base")}
+    train_bits = {k: prep.bits[lab & (kinds == k)] for k in KINDS}
     support = prep.sites[lab].groupby(["kind", "site_type"]).size()
     domain = {"threshold": threshold, "target_rmse": cfg.domain.target_rmse,
               "min_type_support": cfg.domain.min_type_support,
               "range_margin": cfg.domain.range_margin,
               "range_check": T.range_check(cv.residuals, cfg.domain.range_margin),
-              "type_support": {k: {t: int(n) for (kk, t), n in support.items() if kk == k} for k in ("acid", "base")},
+              "type_support": {k: {t: int(n) for (kk, t), n in support.items() if kk == k} for k in KINDS},
               "unseen_type_weight": cv.unseen_type_weight,
               "elements": T.elements_seen(prep.table.mols),
               "max_heavy_atoms": int(T.heavy_atom_counts(prep.table.mols).max())}
@@ -290,7 +292,7 @@ def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_
             heldout, test_residuals = T.evaluate_holdout(final, T.split_filter(measurements, cfg.train.eval_splits),
                                                          cfg, prep, train_bits, cv.unseen_type_weight)
             stage.note = ", ".join(f"value-free RMSE {k} {heldout[f'test_rmse_{k}']:.2f} (Morgan baseline "
-                                   f"{heldout[f'baseline_mol_morgan_test_rmse_{k}']:.2f})" for k in ("acid", "base")
+                                   f"{heldout[f'baseline_mol_morgan_test_rmse_{k}']:.2f})" for k in KINDS
                                    if f"test_rmse_{k}" in heldout)
     with clock("coverage checks") as stage:
         coverage = T.coverage_checks(cv, cfg, test_residuals)
