@@ -320,23 +320,26 @@ class Microstates:
         return float(sel[rank - 1]) if len(sel) >= rank else float("nan")
 
 
-def _held(kinds, priors, pka, window, margin: float, weak: bool) -> np.ndarray:
-    """Sites of a type whose catalog prior lies beyond the window on their weak side (``weak``: an acid
-    above it, a base below it) or their strong side (an acid below it, a base above it), held when the
-    molecule has another site of the same kind of an ordinary type or when the site's own prediction
-    is not well inside the window on that side."""
+def site_holds(kinds, priors, pka, window: tuple[float, float] = (0.0, 14.0),
+               margin: float = 3.0) -> tuple[np.ndarray, np.ndarray]:
+    """``(weak, strong)``: the sites held uncharged (:func:`weak_sites`) and held charged
+    (:func:`strong_sites`), in one pass.  A site type whose catalog prior lies beyond the window on its
+    weak side (an acid above it, a base below it) or its strong side (an acid below it, a base above
+    it) is held when the molecule has another site of the same kind of an ordinary type, or when the
+    site's own prediction is not well inside the window on that side."""
     k = np.asarray(kinds)
     prior = np.asarray(priors, float)
     p = np.asarray(pka, float)
     lo, hi = window
-    outside = (prior < lo) | (prior > hi)
-    beyond_high = (k == "acid") == weak  # weak acids and strong bases lie above the window
-    side = np.where(beyond_high, prior > hi, prior < lo)
+    above, below = prior > hi, prior < lo
+    acid = k == "acid"
     same_kind = k[:, None] == k[None, :]
     np.fill_diagonal(same_kind, False)
-    ordinary_sibling = (same_kind & ~outside[None, :]).any(axis=1)
-    edge = np.where(beyond_high, p > hi - margin, p < lo + margin)
-    return side & (ordinary_sibling | edge)
+    ordinary_sibling = (same_kind & ~(above | below)[None, :]).any(axis=1)
+    near_high, near_low = p > hi - margin, p < lo + margin
+    weak = np.where(acid, above & (ordinary_sibling | near_high), below & (ordinary_sibling | near_low))
+    strong = np.where(acid, below & (ordinary_sibling | near_low), above & (ordinary_sibling | near_high))
+    return weak, strong
 
 
 def weak_sites(kinds, priors, pka, window: tuple[float, float] = (0.0, 14.0), margin: float = 3.0) -> np.ndarray:
@@ -350,7 +353,7 @@ def weak_sites(kinds, priors, pka, window: tuple[float, float] = (0.0, 14.0), ma
     alcohol next to a carboxylic acid, or an amide oxygen, would pose as a constant in the titration
     range.  A lone weak site predicted well inside the window stays free.
     """
-    return _held(kinds, priors, pka, window, margin, weak=True)
+    return site_holds(kinds, priors, pka, window, margin)[0]
 
 
 def strong_sites(kinds, priors, pka, window: tuple[float, float] = (0.0, 14.0), margin: float = 3.0) -> np.ndarray:
@@ -360,7 +363,7 @@ def strong_sites(kinds, priors, pka, window: tuple[float, float] = (0.0, 14.0), 
     ``window_high - margin``).  A sulfonic acid is an anion throughout the window; its constant is
     almost never measured, so the training data hold little to pin its prediction, and left free
     beside a phenol it would pose as a constant in the titration range."""
-    return _held(kinds, priors, pka, window, margin, weak=False)
+    return site_holds(kinds, priors, pka, window, margin)[1]
 
 
 # ----------------------------------------------------------------------------- independent-site helpers

@@ -44,7 +44,7 @@ def molecule_constants(sites: pd.DataFrame, site_pred: np.ndarray, given_atom: n
     rank-th strongest candidate site.  Reads ``mol_id``, ``kind``, ``atom`` and, when present, ``role``
     and ``rank``; never the value or the site it was attached to.
     """
-    from pkasite.models.microstates import Microstates, strong_sites, weak_sites
+    from pkasite.models.microstates import Microstates, site_holds
     interactions = interactions or {}
     prior = sites["prior"].to_numpy() if "prior" in sites.columns else np.full(len(sites), 7.0)
     mol = sites["mol_id"].to_numpy()
@@ -90,8 +90,7 @@ def molecule_constants(sites: pd.DataFrame, site_pred: np.ndarray, given_atom: n
                 W, ex = iW[np.ix_(sel, sel)], iex[np.ix_(sel, sel)]
             else:
                 ex = (atom[ok][:, None] == atom[ok][None, :]) & (kind[ok][:, None] != kind[ok][None, :])
-            hold = weak_sites(kind[ok], prior[ok], pred[ok])
-            hold_charged = strong_sites(kind[ok], prior[ok], pred[ok])
+            hold, hold_charged = site_holds(kind[ok], prior[ok], pred[ok])
             c = Microstates(pred[ok], kind[ok], W, exclusive=ex, hold=hold,
                             hold_charged=hold_charged).constant_of_kind(k, r)
             if np.isfinite(c):

@@ -25,8 +25,7 @@ from pkasite.features.site_features import featurize_sites
 from pkasite.features.sites import KINDS, find_sites, load_catalog
 from pkasite.features.standardize import LACTIM_WARNING, StructureError, lactim_drawing, quiet_rdkit, standardize_mol
 from pkasite.models.domain import similarity_bin, tanimoto_max
-from pkasite.models.microstates import (MAX_EXACT_SITES, Microstates, default_interaction_model, strong_sites,
-                                        weak_sites)
+from pkasite.models.microstates import MAX_EXACT_SITES, Microstates, default_interaction_model, site_holds
 from pkasite.models.prior_blend import blend
 
 from .bundle import ModelBundle
@@ -250,9 +249,8 @@ def molecule_microstates(mol: Chem.Mol, atoms, kinds, pka, priors, interactions,
     W = ex = None
     if len(atoms) > 1:
         W, ex = pair_terms(mol, atoms, kinds, interactions)
-    return Microstates(np.asarray(pka, float), kinds, W, window=window, exclusive=ex,
-                       hold=weak_sites(kinds, priors, pka, window),
-                       hold_charged=strong_sites(kinds, priors, pka, window))
+    weak, strong = site_holds(kinds, priors, pka, window)
+    return Microstates(np.asarray(pka, float), kinds, W, window=window, exclusive=ex, hold=weak, hold_charged=strong)
 
 
 def _site_warnings(bundle: ModelBundle, site_type, kind: str, similarity: float, pka: float) -> list[str]:
@@ -379,8 +377,7 @@ def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4, level: fl
             row["charge_at_ph"] = round(ms.mean_charge(ph, charge0), 3)
             row["fraction_neutral"] = round(ms.neutral_fraction(ph), 4) if charge0 == 0 else 0.0
             row["major_species"] = _major_species(p.mol, [items[j][1] for j in idx], k, ms.major_protonation(ph))
-            n_free = len(idx) - int((weak_sites(k, priors[idx], v, window)
-                                     | strong_sites(k, priors[idx], v, window)).sum())
+            n_free = len(idx) - int((ms.hold | ms.hold_charged).sum())
             if n_free > MAX_EXACT_SITES:
                 warns.append(f"{n_free} sites: the {n_free - MAX_EXACT_SITES} farthest outside the window held "
                              "in their dominant form")
