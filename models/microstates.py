@@ -180,8 +180,8 @@ class Microstates:
 
     ``pka``, ``kinds`` per site; ``W`` the symmetric pair matrix (pK units; zero: independent);
     ``exclusive`` pairs (:func:`exclusive_pairs`) are never charged at once; ``window`` the titration
-    window used to pick sites to hold when there are too many; ``hold`` sites stay uncharged
-    (:func:`weak_sites`), ``hold_charged`` sites stay charged (:func:`strong_sites`).
+    window used to pick sites to hold when there are too many; ``hold`` sites stay uncharged and
+    ``hold_charged`` sites stay charged (:func:`site_holds`).
     """
 
     pka: np.ndarray
@@ -322,11 +322,22 @@ class Microstates:
 
 def site_holds(kinds, priors, pka, window: tuple[float, float] = (0.0, 14.0),
                margin: float = 3.0) -> tuple[np.ndarray, np.ndarray]:
-    """``(weak, strong)``: the sites held uncharged (:func:`weak_sites`) and held charged
-    (:func:`strong_sites`), in one pass.  A site type whose catalog prior lies beyond the window on its
-    weak side (an acid above it, a base below it) or its strong side (an acid below it, a base above
-    it) is held when the molecule has another site of the same kind of an ordinary type, or when the
-    site's own prediction is not well inside the window on that side."""
+    """``(weak, strong)``: the sites held in their uncharged form and those held in their charged form.
+
+    A site type whose catalog prior lies beyond the window is held when the molecule has another site
+    of the same kind of an ordinary type, or when the site's own prediction is not well inside the
+    window on that side (within ``margin`` of its edge):
+
+    - weak: beyond the window on the weak side (acids above it: alcohols, indole and azole N-H; bases
+      below it: amide and thioamide O/S, ...), held uncharged.  Such sites have few training examples
+      and their predictions are the least certain; left free, an alcohol next to a carboxylic acid, or
+      an amide oxygen, would pose as a constant in the titration range.  A lone weak site predicted
+      well inside the window stays free.
+    - strong: beyond it on the strong side (acids below it: sulfonic acids, sulfate monoesters; bases
+      above it), held charged.  A sulfonic acid is an anion throughout the window; its constant is
+      almost never measured, so the training data hold little to pin its prediction, and left free
+      beside a phenol it would pose as a constant in the titration range.
+    """
     k = np.asarray(kinds)
     prior = np.asarray(priors, float)
     p = np.asarray(pka, float)
@@ -340,30 +351,6 @@ def site_holds(kinds, priors, pka, window: tuple[float, float] = (0.0, 14.0),
     weak = np.where(acid, above & (ordinary_sibling | near_high), below & (ordinary_sibling | near_low))
     strong = np.where(acid, below & (ordinary_sibling | near_low), above & (ordinary_sibling | near_high))
     return weak, strong
-
-
-def weak_sites(kinds, priors, pka, window: tuple[float, float] = (0.0, 14.0), margin: float = 3.0) -> np.ndarray:
-    """Sites held in their uncharged form: a weak site type whose catalog prior lies outside the window
-    (acids above it: alcohols, indole and azole N-H; bases below it: amide and thioamide O/S, ...) when
-    the molecule has another site of the same kind of an ordinary type, or when the site's own
-    prediction is not well inside the window (an acid above ``window_high - margin``, a base below
-    ``window_low + margin``).
-
-    Such sites have few training examples and their predictions are the least certain; left free, an
-    alcohol next to a carboxylic acid, or an amide oxygen, would pose as a constant in the titration
-    range.  A lone weak site predicted well inside the window stays free.
-    """
-    return site_holds(kinds, priors, pka, window, margin)[0]
-
-
-def strong_sites(kinds, priors, pka, window: tuple[float, float] = (0.0, 14.0), margin: float = 3.0) -> np.ndarray:
-    """Sites held in their charged form: a strong site type whose catalog prior lies outside the window
-    (acids below it: sulfonic acids, sulfate monoesters; bases above it), on the same conditions as
-    :func:`weak_sites` (an acid predicted below ``window_low + margin``, a base above
-    ``window_high - margin``).  A sulfonic acid is an anion throughout the window; its constant is
-    almost never measured, so the training data hold little to pin its prediction, and left free
-    beside a phenol it would pose as a constant in the titration range."""
-    return site_holds(kinds, priors, pka, window, margin)[1]
 
 
 # ----------------------------------------------------------------------------- independent-site helpers

@@ -201,7 +201,7 @@ def drawn_titrated_sites(rows: pd.DataFrame, kinds=KINDS) -> pd.Series:
             continue
         try:  # a row kept through its source's fallback drawing has no readable drawing of its own
             out[label] = titrated_sites(parent_fragment(parse_smiles(smiles)), kind)
-        except (StructureError, ValueError, RuntimeError):
+        except StructureError:
             continue
     return out
 

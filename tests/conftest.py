@@ -1,9 +1,11 @@
-"""Shared fixtures: the offline data mirror and one curated run of the real open data."""
+"""Shared fixtures: the offline data mirror and one curated run of the real open data; a builder of
+hand-made raw-record tables."""
 from __future__ import annotations
 
 import os
 from pathlib import Path
 
+import pandas as pd
 import pytest
 
 REPO = Path(__file__).resolve().parents[1]
@@ -51,3 +53,20 @@ def heldout(curated, subset):
     rest = m[~m["record_id"].isin(subset["record_id"]) & ~m["inchikey"].isin(subset["inchikey"])]
     return pd.concat([rest[rest["kind"] == k].sample(150, random_state=1) for k in ("acid", "base")],
                      ignore_index=True)
+
+
+def raw_rows(*rows: dict) -> pd.DataFrame:
+    """A raw-record table (:data:`~pkasite.pipeline.ingest.RAW_COLUMNS`) of hand-made rows: source "t",
+    record ids r1, r2, ... and ordinary defaults; each dict overrides columns of its row."""
+    from pkasite.pipeline.ingest import RAW_COLUMNS
+
+    base = {"source": "t", "file": "t.csv", "smiles_fallback": "", "is_pkb": False, "constant_index": None,
+            "constant_numbering": "", "group_key": None, "temperature_text": "25", "method": "", "site_atom": None, "licence": "L",
+            "non_aqueous": "", "pressure": "", "assessment": "", "split": None, "in_house": False,
+            "draws_titrating_species": False}
+    out = []
+    for i, r in enumerate(rows, start=1):
+        rec = {**base, "row": i, "record_id": f"r{i}", **r}
+        rec.setdefault("group_key", rec["record_id"])
+        out.append(rec)
+    return pd.DataFrame(out)[RAW_COLUMNS]

@@ -36,7 +36,15 @@ def test_glycine_like_zwitterion_at_physiological_ph():
 # ----------------------------------------------------------------------------- interacting sites
 
 from pkasite.models.microstates import (InteractionModel, Microstates, default_interaction_model,  # noqa: E402
-                                        exclusive_pairs, read_calibration, strong_sites, weak_sites)
+                                        exclusive_pairs, read_calibration, site_holds)
+
+
+def weak_sites(*args) -> np.ndarray:
+    return site_holds(*args)[0]
+
+
+def strong_sites(*args) -> np.ndarray:
+    return site_holds(*args)[1]
 
 
 def _pair(w: float) -> np.ndarray:

@@ -15,7 +15,7 @@ from pkasite.pipeline.config import CurationConfig
 from pkasite.pipeline.curate import RANK_INPUT_COLUMNS, constant_ranks, curate, format_summary
 from pkasite.pipeline.ingest import PER_KIND, WHOLE_COMPOUND, parse_inhouse, parse_iupac
 
-from conftest import DATA
+from conftest import DATA, raw_rows
 
 
 def frame(*rows: dict) -> pd.DataFrame:
@@ -192,15 +192,10 @@ def _drawn_rows(flag: bool):
     an acid record drawn as the salicylate anion (its carboxylate already titrated), a base record drawn
     as 4-(pyrrolidin-1-yl)pyridinium, a base record drawn as the glycine zwitterion, and a neutral
     drawing."""
-    from pkasite.pipeline.ingest import RAW_COLUMNS
-    base = {"source": "s", "file": "s.csv", "smiles_fallback": "", "is_pkb": False, "constant_index": None,
-            "constant_numbering": WHOLE_COMPOUND, "temperature_text": "25", "method": "", "site_atom": None,
-            "licence": "L", "non_aqueous": "", "pressure": "", "assessment": "", "split": None,
-            "in_house": False, "draws_titrating_species": flag}
     rows = [("O=C([O-])c1ccccc1O", "acid", "13.0"), ("[NH+]1=CC=C(N2CCCC2)C=C1", "base", "-0.5"),
             ("[NH3+]CC(=O)[O-]", "base", "9.5"), ("OC(=O)c1ccccc1", "acid", "4.2")]
-    return pd.DataFrame([{**base, "row": i, "record_id": f"r{i}", "group_key": f"k{i}", "smiles": s,
-                          "kind": k, "value_text": v} for i, (s, k, v) in enumerate(rows, start=1)])[RAW_COLUMNS]
+    return raw_rows(*({"smiles": s, "kind": k, "value_text": v, "draws_titrating_species": flag}
+                      for s, k, v in rows))
 
 
 def test_a_site_drawn_titrated_makes_the_record_a_later_constant():
@@ -208,7 +203,7 @@ def test_a_site_drawn_titrated_makes_the_record_a_later_constant():
     m = res.measurements.set_index("members")
     # the anion's acid value is the phenol's (second) constant, the pyridinium's base value the
     # dication's; the zwitterion and the neutral drawing say nothing about the order
-    assert m["constant_rank"].to_dict() == {"s:r1": 2, "s:r2": 2, "s:r3": 1, "s:r4": 1}
+    assert m["constant_rank"].to_dict() == {"t:r1": 2, "t:r2": 2, "t:r3": 1, "t:r4": 1}
     assert res.summary["ranked_by_drawing"] == 2
     assert "2 of them ranked by a drawing" in format_summary(res.summary)
 
@@ -216,7 +211,7 @@ def test_a_site_drawn_titrated_makes_the_record_a_later_constant():
 def test_by_default_only_base_records_are_ranked_by_their_drawing():
     res = curate(_drawn_rows(True), CurationConfig())
     m = res.measurements.set_index("members")
-    assert m["constant_rank"].to_dict() == {"s:r1": 1, "s:r2": 2, "s:r3": 1, "s:r4": 1}
+    assert m["constant_rank"].to_dict() == {"t:r1": 1, "t:r2": 2, "t:r3": 1, "t:r4": 1}
     assert res.summary["ranked_by_drawing"] == 1
 
 

@@ -10,22 +10,11 @@ from rdkit import Chem
 
 from pkasite.pipeline.config import CurationConfig
 from pkasite.pipeline.curate import Reject, curate, parse_temperature, parse_value
-from pkasite.pipeline.ingest import RAW_COLUMNS, WHOLE_COMPOUND
+from pkasite.pipeline.ingest import WHOLE_COMPOUND
+
+from conftest import raw_rows as raw
 
 CFG = CurationConfig()
-
-
-def raw(*rows: dict) -> pd.DataFrame:
-    base = {"source": "t", "file": "t.csv", "smiles_fallback": "", "is_pkb": False, "constant_index": None,
-            "constant_numbering": "", "group_key": None, "temperature_text": "25", "method": "", "site_atom": None, "licence": "L",
-            "non_aqueous": "", "pressure": "", "assessment": "", "split": None, "in_house": False,
-            "draws_titrating_species": False}
-    out = []
-    for i, r in enumerate(rows, start=1):
-        rec = {**base, "row": i, "record_id": f"r{i}", **r}
-        rec.setdefault("group_key", rec["record_id"])
-        out.append(rec)
-    return pd.DataFrame(out)[RAW_COLUMNS]
 
 
 @pytest.mark.parametrize("text,expected", [("4.76", 4.76), (" -1.5 ", -1.5), ("~3", 3.0), ("ca. 3.5", 3.5),
