@@ -412,10 +412,31 @@ def titrated_sites(mol: Chem.Mol, kind: str, catalog: Catalog | None = None) -> 
     """
     if kind not in KINDS:
         raise ValueError(f"kind must be one of {KINDS}, got {kind!r}")
-    charged = [s for s in find_sites(mol, catalog) if _charged_form(mol, s)]
+    charged = _charged_sites(mol, catalog)
     if any(s.kind != kind for s in charged):
         return 0
     return len({s.atom for s in charged})
+
+
+def charge_against_kind(mol: Chem.Mol, kind: str, catalog: Catalog | None = None) -> int:
+    """The net charge of the sites ``mol`` is drawn with charged (+1 per protonated base site, -1 per
+    acid anion; charge-separated pairs and permanent charges are no sites) when it runs against
+    ``kind``: positive for an acid drawn as a cation, negative for a base drawn as an anion; else 0.
+
+    A source that draws the species giving up (acid) or taking up (base) the measured proton shows by
+    such a drawing which step was measured: 3-hydroxypyridine drawn as its pyridinium cation with an
+    acid value is the cation's first deprotonation, whichever site loses the proton; drawn as its
+    phenolate with a base value, the anion's first protonation.
+    """
+    if kind not in KINDS:
+        raise ValueError(f"kind must be one of {KINDS}, got {kind!r}")
+    atoms = {s.atom for s in _charged_sites(mol, catalog)}
+    charge = sum(mol.GetAtomWithIdx(a).GetFormalCharge() for a in atoms)
+    return charge if (charge > 0 if kind == "acid" else charge < 0) else 0
+
+
+def _charged_sites(mol: Chem.Mol, catalog: Catalog | None) -> list[Site]:
+    return [s for s in find_sites(mol, catalog) if _charged_form(mol, s)]
 
 
 # ----------------------------------------------------------------------------- label assignment

@@ -292,18 +292,27 @@ class Microstates:
                 grid[i + 1] = mid
         return float(0.5 * (grid[i] + grid[i + 1]))
 
+    def _bound_totals(self) -> tuple[np.ndarray, np.ndarray]:
+        """Per number ``n`` of bound protons on the free sites: the log10 sum of the formation constants
+        of its microstates (-inf when none is allowed) and their mean count of protonated acid sites."""
+        if getattr(self, "_totals", None) is None:
+            k = len(self.free)
+            logc = np.full(k + 1, -np.inf)
+            ea = np.zeros(k + 1)
+            for n in range(k + 1):
+                sel = self.n_bound == n
+                if sel.any() and np.isfinite(self.log_beta[sel]).any():
+                    logc[n] = _logsumexp10(self.log_beta[sel])
+                    w = 10.0 ** (self.log_beta[sel] - logc[n])
+                    ea[n] = w @ self.acid_bound[sel]
+            self._totals = (logc, ea)
+        return self._totals
+
     def _macro_constants(self) -> tuple[np.ndarray, np.ndarray]:
         k = len(self.free)
         if k == 0:
             return np.zeros(0), np.zeros(0, dtype=object)
-        logc = np.full(k + 1, -np.inf)
-        ea = np.zeros(k + 1)
-        for n in range(k + 1):
-            sel = self.n_bound == n
-            if sel.any() and np.isfinite(self.log_beta[sel]).any():
-                logc[n] = _logsumexp10(self.log_beta[sel])
-                w = 10.0 ** (self.log_beta[sel] - logc[n])
-                ea[n] = w @ self.acid_bound[sel]
+        logc, ea = self._bound_totals()
         ok = np.isfinite(logc)
         steps = [n for n in range(1, k + 1) if ok[n] and ok[n - 1]]
         pk = np.array([logc[n] - logc[n - 1] for n in steps])
@@ -318,6 +327,21 @@ class Microstates:
         if kind == "base":
             sel = sel[::-1]
         return float(sel[rank - 1]) if len(sel) >= rank else float("nan")
+
+    def constant_at_charge(self, charge: int) -> float:
+        """The macroscopic constant of the step between net site charge ``charge`` and ``charge - 1``
+        (the species of that charge giving up a proton), NaN when the model has no such step.
+
+        The charge counts the sites only (+1 per protonated base, -1 per acid anion, held sites in their
+        held form), not permanent charges such as a quaternary nitrogen.
+        """
+        n_acid = int((self.kinds[self.free] == "acid").sum())
+        held = float(self.held_q[self.held].sum()) if self.held else 0.0
+        n = int(round(charge + n_acid - held))  # protons bound on the free sites at that charge
+        logc, _ = self._bound_totals()
+        if not 1 <= n < len(logc) or not (np.isfinite(logc[n]) and np.isfinite(logc[n - 1])):
+            return float("nan")
+        return float(logc[n] - logc[n - 1])
 
 
 def site_holds(kinds, priors, pka, window: tuple[float, float] = (0.0, 14.0),

@@ -77,6 +77,9 @@ class CurationConfig(_Strict):
     # draws_titrating_species), drawn with n sites of their kind already charged, are at least their
     # compound's constant n + 1 of the kind
     charged_drawing_ranks: list[Literal["acid", "base"]] = Field(default_factory=lambda: ["base"])
+    # such a record drawn with a charge against its kind (an acid as a cation, a base as an anion) is the
+    # step out of the drawn charge (measurements: drawn_charge); false: every drawn_charge is 0
+    charge_against_kind: bool = True
     pkw: float = 14.0
     conflict_spread: float = 2.0
     conflict_action: Literal["drop", "flag"] = "drop"

@@ -24,7 +24,8 @@ from .ingest import PER_KIND, WHOLE_COMPOUND
 
 MEASUREMENT_COLUMNS = [
     "record_id", "smiles", "inchikey", "kind", "pka", "n", "spread", "temperature_c", "method",
-    "source", "licence", "site_atom", "constant_rank", "members", "split", "in_house", "conflict",
+    "source", "licence", "site_atom", "constant_rank", "drawn_charge", "members", "split", "in_house",
+    "conflict",
 ]
 REJECT_COLUMNS = ["source", "record_id", "file", "row", "reason", "detail", "smiles", "value_text"]
 
@@ -183,26 +184,40 @@ def unlisted_stronger_acids(rows: pd.DataFrame) -> pd.Series:
     return extra
 
 
-def drawn_titrated_sites(rows: pd.DataFrame, kinds=KINDS) -> pd.Series:
-    """Per row: how many sites of its kind its drawing shows already titrated
-    (:func:`~pkasite.features.sites.titrated_sites` on the largest fragment of ``input_smiles``), for
-    rows of ``kinds`` from a source that draws the titrating species (``draws_titrating_species``); 0
-    for the others and for drawings without a charge.  Such a record is at least its compound's
-    constant n + 1 of the kind: a base record drawn as 4-(pyrrolidin-1-yl)pyridinium is the dication's
-    constant, not the pyridine's pKaH."""
-    from pkasite.features.sites import titrated_sites
+def drawing_charges(rows: pd.DataFrame, rank_kinds=KINDS, against_kind: bool = True) -> pd.DataFrame:
+    """Per row, what its drawing says about the measured step, for rows from a source that draws the
+    titrating species (``draws_titrating_species``); 0 for the others and for drawings without a charge.
+    Both columns read the largest fragment of ``input_smiles``, never the value:
+
+    - ``titrated``, for rows of ``rank_kinds``: how many sites of its kind the drawing shows already
+      titrated (:func:`~pkasite.features.sites.titrated_sites`).  Such a record is at least its
+      compound's constant n + 1 of the kind: a base record drawn as 4-(pyrrolidin-1-yl)pyridinium is the
+      dication's constant, not the pyridine's pKaH.
+    - ``against_kind``, with ``against_kind``: the drawn charge of its sites when it runs against the
+      kind (:func:`~pkasite.features.sites.charge_against_kind`): an acid record drawn as a cation is
+      the step that takes that charge down by one, a base record drawn as an anion the step that takes
+      it up by one.
+    """
+    from pkasite.features.sites import charge_against_kind, titrated_sites
     from pkasite.features.standardize import StructureError, parent_fragment, parse_smiles
 
-    out = pd.Series(0, index=rows.index, dtype="int64")
-    flagged = rows["draws_titrating_species"].fillna(False).astype(bool) & rows["kind"].isin(list(kinds))
+    out = pd.DataFrame({"titrated": 0, "against_kind": 0}, index=rows.index, dtype="int64")
+    flagged = rows["draws_titrating_species"].fillna(False).astype(bool)
+    if not against_kind:
+        flagged &= rows["kind"].isin(list(rank_kinds))
+    rank_kinds = set(rank_kinds)
     for label, smiles, kind in zip(rows.index[flagged], rows.loc[flagged, "input_smiles"],
                                    rows.loc[flagged, "kind"]):
         if "+" not in smiles and "-" not in smiles:
             continue
         try:  # a row kept through its source's fallback drawing has no readable drawing of its own
-            out[label] = titrated_sites(parent_fragment(parse_smiles(smiles)), kind)
+            mol = parent_fragment(parse_smiles(smiles))
         except StructureError:
             continue
+        if kind in rank_kinds:
+            out.at[label, "titrated"] = titrated_sites(mol, kind)
+        if against_kind:
+            out.at[label, "against_kind"] = charge_against_kind(mol, kind)
     return out
 
 
@@ -359,12 +374,14 @@ def _rank_constants(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFra
         return rows, []
     ranked = constant_ranks(rows)
     ranked["constant_rank"] += unlisted_stronger_acids(rows)
-    drawn = drawn_titrated_sites(rows, cfg.charged_drawing_ranks)
+    drawing = drawing_charges(rows, cfg.charged_drawing_ranks, cfg.charge_against_kind)
+    drawn = drawing["titrated"]
     raised = ranked["constant_rank"] < drawn + 1
     ranked["constant_rank"] = ranked["constant_rank"].where(~raised, drawn + 1)
     named = rows["site_atom"].notna()
     rows = rows.assign(constant_rank=ranked["constant_rank"].astype(object).where(~named, None),
-                       ranked_by_drawing=raised & ~named)
+                       ranked_by_drawing=raised & ~named,
+                       drawn_charge=drawing["against_kind"].where(~named, 0))
     if not cfg.first_constant_only:
         return rows, []
     later = ~named & (ranked["constant_rank"] > 1)
@@ -459,9 +476,10 @@ def _aggregate(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFrame, l
         return pd.DataFrame(columns=MEASUREMENT_COLUMNS), [], []
     groups: dict[tuple, list[dict]] = {}
     for r in rows.to_dict("records"):
-        groups.setdefault((r["inchikey"], r["kind"], _key(r["site_atom"]), _key(r["constant_rank"])), []).append(r)
+        key = (r["inchikey"], r["kind"], _key(r["site_atom"]), _key(r["constant_rank"]), int(r.get("drawn_charge", 0)))
+        groups.setdefault(key, []).append(r)
     out, conflicts, merged = [], [], []
-    for (_, kind, site_key, rank_key), grp in groups.items():
+    for (_, kind, site_key, rank_key, drawn_charge), grp in groups.items():
         values = np.array([r["pka"] for r in grp], float)
         spread = float(values.max() - values.min())
         conflict = spread > cfg.conflict_spread
@@ -484,7 +502,7 @@ def _aggregate(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFrame, l
             "method": _joined(r["method"] for r in grp), "source": _joined(r["source"] for r in grp),
             "licence": _joined(r["licence"] for r in grp),
             "site_atom": None if site_key < 0 else int(site_key),
-            "constant_rank": None if rank_key < 0 else int(rank_key),
+            "constant_rank": None if rank_key < 0 else int(rank_key), "drawn_charge": drawn_charge,
             "members": ";".join(f"{r['source']}:{r['record_id']}" for r in grp),
             "split": _joined(r["split"] for r in grp), "in_house": any(bool(r["in_house"]) for r in grp),
             "conflict": bool(conflict),
@@ -492,6 +510,7 @@ def _aggregate(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFrame, l
     result = pd.DataFrame(out, columns=MEASUREMENT_COLUMNS)
     for col in ("site_atom", "constant_rank"):
         result[col] = result[col].astype("Int64")
+    result["drawn_charge"] = result["drawn_charge"].astype("int64")
     return result, conflicts, merged
 
 
@@ -501,6 +520,7 @@ def _constant_counts(merged: list[dict]) -> dict:
     return {
         "later_constants_kept": sum(1 for r in merged if _key(r["constant_rank"]) > 1),
         "ranked_by_drawing": sum(1 for r in merged if r.get("ranked_by_drawing")),
+        "drawn_against_kind": sum(1 for r in merged if r.get("drawn_charge", 0)),
         "first_constants_recovered": sum(1 for r in recovered if _key(r["constant_rank"]) == 1),
         "rows_recovered": len(recovered),
     }
@@ -557,6 +577,9 @@ def format_summary(summary: dict) -> str:
     lines.append(f"replicate groups   {summary['replicate_groups']:>7}")
     lines.append(f"later constants kept {summary['later_constants_kept']:>5}  (rank 2 or more of their kind; "
                  f"{summary.get('ranked_by_drawing', 0)} of them ranked by a drawing with a site already titrated)")
+    lines.append(f"drawn against kind {summary.get('drawn_against_kind', 0):>7}  (acid records drawn as cations, base "
+                 f"records as anions: {summary.get('drawn_against_kind', 0)} drawn against their kind, each compared "
+                 "with the step out of its drawn charge)")
     lines.append(f"rows recovered     {summary['rows_recovered']:>7}  (kept, rejected by the former numbering rule; "
                  f"{summary['first_constants_recovered']} of them rank 1)")
     if summary["flagged_conflicts"]:

@@ -32,7 +32,7 @@ RESIDUAL_COLUMNS = ["level", "mol_id", "kind", "site_type", "atom", "similarity"
 
 
 def molecule_constants(sites: pd.DataFrame, site_pred: np.ndarray, given_atom: np.ndarray,
-                       interactions: dict | None = None) -> pd.DataFrame:
+                       interactions: dict | None = None, drawn_charge: np.ndarray | None = None) -> pd.DataFrame:
     """Per molecule (index ``mol_id``): the predicted constant ``pred`` and the site row ``row`` it is
     credited to.
 
@@ -41,8 +41,12 @@ def molecule_constants(sites: pd.DataFrame, site_pred: np.ndarray, given_atom: n
     (first acid step, or first base step counted from the basic end) of the molecule's microstates
     (:class:`~pkasite.models.microstates.Microstates`, all its sites of both kinds, pair terms from
     ``interactions``: mol_id -> (rows, W, exclusive); without an entry the sites are independent), credited to the
-    rank-th strongest candidate site.  Reads ``mol_id``, ``kind``, ``atom`` and, when present, ``role``
-    and ``rank``; never the value or the site it was attached to.
+    rank-th strongest candidate site.  A measurement drawn with a charge against its kind
+    (``drawn_charge`` per mol_id, from the curation: positive for an acid drawn as a cation, negative for
+    a base drawn as an anion) is instead the step out of that charge, whichever sites it titrates
+    (:meth:`~pkasite.models.microstates.Microstates.constant_at_charge`), still credited to the same
+    site row.  Reads ``mol_id``, ``kind``, ``atom`` and, when present, ``role`` and ``rank``; never the
+    value or the site it was attached to.
     """
     from pkasite.models.microstates import Microstates, site_holds
     interactions = interactions or {}
@@ -74,7 +78,8 @@ def molecule_constants(sites: pd.DataFrame, site_pred: np.ndarray, given_atom: n
         row = int(strongest[min(r, len(strongest)) - 1])
         value = pred[row]
         ok = rows[~np.isnan(pred[rows])]
-        coupled = len(cand) > 1
+        charge = 0 if drawn_charge is None else int(drawn_charge[m])
+        coupled = len(cand) > 1 or charge != 0
         if not coupled and m in interactions:
             irows, iW, _ = interactions[m]
             i = int(np.flatnonzero(irows == row)[0])
@@ -91,8 +96,10 @@ def molecule_constants(sites: pd.DataFrame, site_pred: np.ndarray, given_atom: n
             else:
                 ex = (atom[ok][:, None] == atom[ok][None, :]) & (kind[ok][:, None] != kind[ok][None, :])
             hold, hold_charged = site_holds(kind[ok], prior[ok], pred[ok])
-            c = Microstates(pred[ok], kind[ok], W, exclusive=ex, hold=hold,
-                            hold_charged=hold_charged).constant_of_kind(k, r)
+            ms = Microstates(pred[ok], kind[ok], W, exclusive=ex, hold=hold, hold_charged=hold_charged)
+            c = ms.constant_at_charge(charge if k == "acid" else charge + 1) if charge else float("nan")
+            if not np.isfinite(c):
+                c = ms.constant_of_kind(k, r)
             if np.isfinite(c):
                 value = c
         out_mol.append(m), out_pred.append(value), out_row.append(row)
@@ -105,6 +112,13 @@ def given_atoms(table) -> np.ndarray:
     return pd.to_numeric(table.molecules["site_atom"], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
 
 
+def drawn_charges(table) -> np.ndarray:
+    """Per mol_id of a :class:`SiteTable`, the measurement's drawn charge against its kind (0 when none)."""
+    if "drawn_charge" not in table.molecules.columns:
+        return np.zeros(len(table.molecules), int)
+    return pd.to_numeric(table.molecules["drawn_charge"], errors="coerce").fillna(0).to_numpy(dtype=int)
+
+
 def table_constants(table, site_pred: np.ndarray) -> pd.DataFrame:
     """:func:`molecule_constants` of a :class:`SiteTable`'s molecules, remembered for the last
     ``site_pred`` (training asks for the same predictions' constants up to three times, and the
@@ -113,7 +127,8 @@ def table_constants(table, site_pred: np.ndarray) -> pd.DataFrame:
     key = (id(table.sites), pred.shape, pred.tobytes())
     memo = table._constants_memo
     if memo is None or memo[0] != key:
-        memo = (key, molecule_constants(table.sites, pred, given_atoms(table), table.interactions()))
+        memo = (key, molecule_constants(table.sites, pred, given_atoms(table), table.interactions(),
+                                        drawn_charges(table)))
         table._constants_memo = memo
     return memo[1].copy()
 

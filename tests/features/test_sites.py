@@ -18,6 +18,7 @@ from rdkit import Chem, RDLogger
 
 from pkasite.features.standardize import standardize_mol
 from pkasite.features.sites import (
+    charge_against_kind,
     Assignment,
     CatalogError,
     NoSiteError,
@@ -592,3 +593,24 @@ def test_titrated_sites_counts_sites_drawn_in_their_charged_form(name, smiles, k
 def test_titrated_sites_needs_a_kind():
     with pytest.raises(ValueError, match="kind"):
         titrated_sites(Chem.MolFromSmiles("CC(=O)[O-]"), "zwitterion")
+
+
+@pytest.mark.parametrize("name,smiles,kind,expected", [
+    # an acid record drawn as a cation: the cation's first deprotonation, whichever site loses the proton
+    ("3-hydroxypyridinium", "Oc1ccc[nH+]c1", "acid", 1),
+    ("4-aminobutanoic acid cation", "[NH3+]CCCC(=O)O", "acid", 1),
+    ("ethylenediammonium, acid record", "[NH3+]CC[NH3+]", "acid", 2),
+    # a base record drawn as an anion: the anion's first protonation
+    ("3-pyridinolate", "[O-]c1cccnc1", "base", -1),
+    ("glycinate", "NCC(=O)[O-]", "base", -1),
+    # a charge of the record's own kind, a zwitterion, charge-separated and permanent charges: nothing
+    ("3-hydroxypyridinium, base record", "Oc1ccc[nH+]c1", "base", 0),
+    ("salicylate, acid record", "O=C([O-])c1ccccc1O", "acid", 0),
+    ("glycine zwitterion", "[NH3+]CC(=O)[O-]", "acid", 0),
+    ("4-nitrophenol", "[O-][N+](=O)c1ccc(O)cc1", "acid", 0),
+    ("N-methylpyridinium-3-ol", "C[n+]1cccc(O)c1", "acid", 0),
+])
+def test_charge_against_kind_reads_the_drawn_species(name, smiles, kind, expected):
+    assert charge_against_kind(Chem.MolFromSmiles(smiles), kind) == expected, name
+    with pytest.raises(ValueError, match="kind"):
+        charge_against_kind(Chem.MolFromSmiles(smiles), "neutral")

@@ -236,3 +236,27 @@ def test_sites_whose_charges_share_an_atom_get_the_strongest_pair_term():
     # an amidine's imine N and its own amino N take up one charge between them
     amidine = Chem.MolFromSmiles("CC(=N)N")
     assert shared_charge_pairs(amidine, [2, 3]).tolist() == [[False, True], [True, False]]
+
+
+def test_the_step_out_of_a_charge_is_named_by_that_charge_whatever_its_sites():
+    # 3-hydroxypyridine: pyridinium 4.79 and OH 8.75 (Albert & Phillips, J. Chem. Soc. 1956; from memory)
+    ms = Microstates([8.75, 4.79], ["acid", "base"])
+    # the cation (+1) gives up its first proton at the pyridinium's constant, the neutral molecule (0)
+    # its next one at the phenol's, although the first step is a base step and the second an acid step
+    assert ms.constant_at_charge(1) == pytest.approx(4.79, abs=0.01)
+    assert ms.constant_at_charge(0) == pytest.approx(8.75, abs=0.01)
+    assert ms.constant_of_kind("acid") == pytest.approx(ms.constant_at_charge(0))
+    # no species of charge +2 or -1 loses a proton
+    assert np.isnan(ms.constant_at_charge(2)) and np.isnan(ms.constant_at_charge(-1))
+    # an amino acid with a pair term: the cation's step is the carboxylic acid's, pulled down by the attraction
+    aa = Microstates([3.5, 8.5], ["acid", "base"], _pair(1.5))
+    assert aa.constant_at_charge(1) == pytest.approx(aa.constant_of_kind("acid"))
+    assert aa.constant_at_charge(0) == pytest.approx(aa.constant_of_kind("base"))
+
+
+def test_the_step_out_of_a_charge_counts_held_sites_in_their_held_form():
+    # a sulfonate held as the anion beside an amine (taurine-like: amine 9.1, CRC, from memory): the
+    # species of site charge 0 is the zwitterion, whose step is the amine's
+    ms = Microstates([-1.5, 9.1], ["acid", "base"], hold_charged=np.array([True, False]))
+    assert ms.constant_at_charge(0) == pytest.approx(9.1)
+    assert np.isnan(ms.constant_at_charge(1))

@@ -157,9 +157,9 @@ def test_nicotine_most_basic_constant_kept_with_rank_one(curated, mirror):
 def test_two_acid_constants_kept_with_ranks_in_value_order(curated, mirror):
     m = curated.result.measurements
     acids = m[(m["kind"] == "acid") & (m["source"] == "dwpka")]
-    several = acids[acids.duplicated("inchikey", keep=False)]
+    several = acids[acids.duplicated(["inchikey", "drawn_charge"], keep=False)]
     assert len(several), "no compound with two acid constants in the curated compilation"
-    for _, grp in several.groupby("inchikey"):
+    for _, grp in several.groupby(["inchikey", "drawn_charge"]):
         grp = grp.sort_values("pka")
         ranks = grp["constant_rank"].tolist()
         # ranks grow with the value; a gap stands for an acid constant the numbering implies but the
@@ -220,6 +220,47 @@ def test_charged_drawings_rank_nothing_for_other_sources_or_when_off():
     off = curate(_drawn_rows(True), CurationConfig(charged_drawing_ranks=[]))
     for res in (other_source, off):
         assert set(res.measurements["constant_rank"]) == {1} and res.summary["ranked_by_drawing"] == 0
+
+
+def _against_rows():
+    """INVENTED values on 3-hydroxypyridine, in a source that draws the titrating species: an acid
+    record drawn as the pyridinium cation, a base record drawn as the phenolate, an acid record drawn
+    neutral."""
+    rows = [("Oc1ccc[nH+]c1", "acid", "4.9"), ("[O-]c1cccnc1", "base", "8.6"), ("Oc1cccnc1", "acid", "8.7")]
+    return raw_rows(*({"smiles": s, "kind": k, "value_text": v, "draws_titrating_species": True}
+                      for s, k, v in rows))
+
+
+def test_a_record_drawn_against_its_kind_keeps_the_charge_of_its_drawing():
+    res = curate(_against_rows(), CurationConfig())
+    m = res.measurements.set_index("members")
+    # the cation's step and the neutral molecule's step are two constants, not conflicting replicates
+    assert m["drawn_charge"].to_dict() == {"t:r1": 1, "t:r2": -1, "t:r3": 0}
+    assert m["pka"].to_dict() == {"t:r1": 4.9, "t:r2": 8.6, "t:r3": 8.7}
+    assert res.summary["drawn_against_kind"] == 2
+    assert "2 drawn against their kind" in format_summary(res.summary)
+
+
+def test_without_the_drawn_charge_the_two_acid_steps_conflict():
+    res = curate(_against_rows(), CurationConfig(charge_against_kind=False))
+    assert res.measurements["members"].tolist() == ["t:r2"]
+    assert set(res.measurements["drawn_charge"]) == {0} and res.summary["drawn_against_kind"] == 0
+    assert set(res.rejects["reason"]) == {"conflicting_replicates"}
+
+
+@pytest.mark.slow
+def test_compilation_records_drawn_against_their_kind_keep_their_drawn_charge(curated, mirror):
+    """3-hydroxypyridine: the compilation files 5.01 as an acid record drawn as the pyridinium cation
+    (17887) and 8.6 as a base record drawn as the phenolate (17886); handbook constants 4.79
+    (pyridinium) and 8.75 (OH) (Albert & Phillips, J. Chem. Soc. 1956; from memory).  Each is the step
+    out of its drawn charge, not the first constant of its kind."""
+    rows = pd.concat([_dwpka_rows(mirror, "acidic").loc[["17887"]], _dwpka_rows(mirror, "basic").loc[["17886"]]])
+    assert rows["OriginalSmiles"].str.contains(r"\[NH\+\]").tolist() == [True, False]
+    assert rows["OriginalSmiles"].str.contains(r"\[O-\]").tolist() == [False, True]
+    m = curated.result.measurements.set_index("members")
+    assert m.loc["dwpka:17887", "drawn_charge"] == 1 and m.loc["dwpka:17886", "drawn_charge"] == -1
+    assert m.loc["dwpka:17887", "pka"] == pytest.approx(4.79, abs=0.4)
+    assert m.loc["dwpka:17886", "pka"] == pytest.approx(8.75, abs=0.4)
 
 
 @pytest.mark.slow

@@ -60,7 +60,8 @@ def test_value_free_reduction_reads_no_value_and_no_attached_site(fitted, heldou
     pred, sim = T.heldout_site_predictions(reg, test, bits)
     reference = E.constants_by_mol(test.table, pred)
     blind = test.table.sites.drop(columns=["label", "labeled", "confidence"])
-    got = E.molecule_constants(blind, pred, E.given_atoms(test.table), test.table.interactions())
+    got = E.molecule_constants(blind, pred, E.given_atoms(test.table), test.table.interactions(),
+                               E.drawn_charges(test.table))
     assert np.array_equal(got["pred"].to_numpy(), reference[got.index.to_numpy()])
     # the site predictions themselves do not change when every value and attachment is scrambled
     test.table.sites["label"] = np.nan
@@ -91,6 +92,23 @@ def test_molecule_constant_comes_from_the_microstates_or_the_given_site():
     got = E.molecule_constants(sites, pred, np.array([np.nan, np.nan, 5.0, np.nan]))
     assert got["pred"].to_numpy() == pytest.approx([4.2, 10.5, 9.0, 4.5 - np.log10(2)], abs=1e-3)
     assert got["row"].tolist() == [0, 2, 5, 6]
+
+
+def test_a_measurement_drawn_against_its_kind_is_compared_with_the_step_out_of_its_charge():
+    """3-hydroxypyridine (OH 8.75, pyridinium 4.79; Albert & Phillips 1956, from memory), twice: an acid
+    record drawn as the pyridinium cation (drawn charge +1) is the cation's first deprotonation, the
+    pyridinium's step; a base record drawn as the phenolate (-1) is the anion's first protonation, the
+    phenol's step.  Without a drawn charge they are the first acid and the first base constant."""
+    sites = pd.DataFrame({"mol_id": [0, 0, 1, 1], "kind": ["acid", "base", "acid", "base"],
+                          "atom": [0, 5, 0, 5], "role": ["candidate", "context", "context", "candidate"]})
+    pred = np.array([8.75, 4.79, 8.75, 4.79])
+    given = np.array([np.nan, np.nan])
+    drawn = E.molecule_constants(sites, pred, given, drawn_charge=np.array([1, -1]))
+    plain = E.molecule_constants(sites, pred, given)
+    assert drawn["pred"].to_numpy() == pytest.approx([4.79, 8.75], abs=0.01)
+    assert plain["pred"].to_numpy() == pytest.approx([8.75, 4.79], abs=0.01)
+    # still credited to the record's own candidate site
+    assert drawn["row"].tolist() == plain["row"].tolist() == [0, 3]
 
 
 def test_unseen_type_blend_never_weighs_a_fold_with_its_own_values(fitted):
