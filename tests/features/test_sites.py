@@ -216,6 +216,13 @@ def test_enough_reference_molecules():
         ("CC(=O)Nc1ccccn1", 3, "acyl_azinylamine_nh"),  # N-(2-pyridyl)acetamide N-H; HB
         ("CC(=O)Nc1ncccn1", 3, "acyl_heteroarylamine_nh"),  # pyrimidin-2-yl: the doubly flanked type wins; HB
         ("O=C1CN=C(c2ccccc2Cl)c2cc([N+](=O)[O-])ccc2N1", 21, "acyl_aminoaryl_imine_nh"),  # clonazepam; DRUG
+        # hydroxy-azines drawn as lactims: 2-pyridone's N-H 11.65, 4-pyridone's 11.1 (Albert & Phillips
+        # 1956, from memory); the ring N of 3-hydroxypyridine cannot take the lactam form (pyridinium 4.8; CRC)
+        ("Oc1ccccn1", 6, "lactim_n"),
+        ("Oc1ccncc1", 4, "lactim_n"),
+        ("Sc1ccccn1", 6, "lactim_n"),
+        ("Oc1cccnc1", 5, "pyridine_like_n"),
+        ("Oc1cccc2cccnc12", 9, "pyridine_like_n"),  # 8-hydroxyquinoline: the OH is on the other ring; CRC
     ],
 )
 def test_site_types_of_textbook_groups(smiles, atom, site_type):
