@@ -181,7 +181,11 @@ class Microstates:
     ``pka``, ``kinds`` per site; ``W`` the symmetric pair matrix (pK units; zero: independent);
     ``exclusive`` pairs (:func:`exclusive_pairs`) are never charged at once; ``window`` the titration
     window used to pick sites to hold when there are too many; ``hold`` sites stay uncharged and
-    ``hold_charged`` sites stay charged (:func:`site_holds`).
+    ``hold_charged`` sites stay charged (:func:`site_holds`); ``tautomer`` pairs (acid, base) are
+    lactims (:func:`~pkasite.features.site_pairs.lactim_pairs`), whose charged pair O- / N-H+ is the
+    neutral lactam: it counts as neutral in :meth:`neutral_fraction`.  The kinds of the steps still follow
+    the sites (2-hydroxypyridine's 0.75 is an acid step, the O-H's), as the open data mostly file them;
+    see features/FEATURES.md for the measured alternative.
     """
 
     pka: np.ndarray
@@ -191,6 +195,7 @@ class Microstates:
     exclusive: np.ndarray | None = None
     hold: np.ndarray | None = None
     hold_charged: np.ndarray | None = None
+    tautomer: np.ndarray | None = None
     held: list[int] = field(default_factory=list, init=False)
 
     def __post_init__(self):
@@ -236,6 +241,8 @@ class Microstates:
         self.log_beta = log_beta
         self.n_bound = states.sum(axis=1)
         self.acid_bound = states[:, acid[idx]].sum(axis=1)
+        T = np.zeros((k, k), bool) if self.tautomer is None else np.asarray(self.tautomer, bool)[np.ix_(idx, idx)]
+        self.tautomer_free = T
 
     # ------------------------------------------------------------------ populations
     def log_weights(self, ph: float) -> np.ndarray:
@@ -250,10 +257,14 @@ class Microstates:
         return float(base_charge + held + self.populations(ph) @ self.q.sum(axis=1))
 
     def neutral_fraction(self, ph: float) -> float:
-        """Population of the microstate with every site uncharged (0 when a held site is charged)."""
+        """Population of the uncharged microstates: every site uncharged, or charged only as the O- / N-H+
+        pair of a lactim, which is the neutral lactam (0 when a held site is charged)."""
         if self.held and np.any(self.held_q[self.held] != 0):
             return 0.0
-        return float(self.populations(ph)[np.all(self.q == 0, axis=1)].sum())
+        q, T = self.q, self.tautomer_free
+        paired = ((q[:, :, None] * q[:, None, :]) < 0) & T[None, :, :]  # charged with a charged partner
+        ok = (q == 0) | paired.any(axis=2)
+        return float(self.populations(ph)[np.all(ok, axis=1) & (q.sum(axis=1) == 0)].sum())
 
     def major_protonation(self, ph: float) -> np.ndarray:
         """Per site: does it carry its proton in the most populated microstate."""

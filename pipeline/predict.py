@@ -246,11 +246,12 @@ def molecule_microstates(mol: Chem.Mol, atoms, kinds, pka, priors, interactions,
     """The molecule's microstates: its sites with their predicted pKa, pair terms from the bundle's
     interaction model, tautomeric pairs exclusive, weak sites held (see :mod:`pkasite.models.microstates`)."""
     kinds = np.asarray(kinds)
-    W = ex = None
+    W = ex = taut = None
     if len(atoms) > 1:
-        W, ex = pair_terms(mol, atoms, kinds, interactions)
+        W, ex, taut = pair_terms(mol, atoms, kinds, interactions)
     weak, strong = site_holds(kinds, priors, pka, window)
-    return Microstates(np.asarray(pka, float), kinds, W, window=window, exclusive=ex, hold=weak, hold_charged=strong)
+    return Microstates(np.asarray(pka, float), kinds, W, window=window, exclusive=ex, hold=weak, hold_charged=strong,
+                       tautomer=taut)
 
 
 def _site_warnings(bundle: ModelBundle, site_type, kind: str, similarity: float, pka: float) -> list[str]:

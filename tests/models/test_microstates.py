@@ -260,3 +260,44 @@ def test_the_step_out_of_a_charge_counts_held_sites_in_their_held_form():
     ms = Microstates([-1.5, 9.1], ["acid", "base"], hold_charged=np.array([True, False]))
     assert ms.constant_at_charge(0) == pytest.approx(9.1)
     assert np.isnan(ms.constant_at_charge(1))
+
+
+@pytest.mark.parametrize("name,smiles,pairs", [
+    # a ring O-H or S-H ortho or para to a ring N of one six-membered ring: a lactim
+    ("2-hydroxypyridine", "Oc1ccccn1", {(0, 6)}),
+    ("4-hydroxypyridine", "Oc1ccncc1", {(0, 4)}),
+    ("pyridine-2-thiol", "Sc1ccccn1", {(0, 6)}),
+    ("2-hydroxypyrimidine", "Oc1ncccn1", {(0, 2), (0, 6)}),
+    # meta, across a ring fusion, or not on the ring: no lactim
+    ("3-hydroxypyridine", "Oc1cccnc1", set()),
+    ("8-hydroxyquinoline", "Oc1cccc2cccnc12", set()),
+    ("picolinic acid", "O=C(O)c1ccccn1", set()),
+])
+def test_lactim_pairs(name, smiles, pairs):
+    from rdkit import Chem
+
+    from pkasite.features.site_pairs import lactim_pairs
+    from pkasite.features.sites import find_sites
+    mol = Chem.MolFromSmiles(smiles)
+    sites = find_sites(mol)
+    atoms = [s.atom for s in sites]
+    T = lactim_pairs(mol, atoms, [s.kind for s in sites])
+    assert (T == T.T).all(), name
+    assert {(atoms[i], atoms[j]) for i, j in zip(*np.nonzero(T)) if i < j} == pairs, name
+
+
+def test_a_lactim_pair_is_neutral_as_the_lactam():
+    """2-hydroxypyridine is 2-pyridone in water: protonation 0.75, N-H 11.65 (Albert & Phillips 1956, from
+    memory).  In the site picture the O- / N-H+ pair is the lactam, so between the two constants the
+    molecule is neutral, not a zwitterion; an amino acid's charged pair stays a zwitterion."""
+    T = np.array([[False, True], [True, False]])
+    ms = Microstates([0.75, 11.65], ["acid", "base"], tautomer=T)
+    assert ms.neutral_fraction(7.0) == pytest.approx(1.0, abs=1e-3)
+    plain = Microstates([0.75, 11.65], ["acid", "base"])
+    assert plain.neutral_fraction(7.0) < 1e-6
+    # populations, charges, constants and their kinds do not depend on the pair
+    assert ms.mean_charge(7.0) == pytest.approx(plain.mean_charge(7.0))
+    assert ms.macro_constants()[0] == pytest.approx(plain.macro_constants()[0])
+    assert list(ms.macro_constants()[1]) == list(plain.macro_constants()[1]) == ["acid", "base"]
+    # outside the pair's range the charged species count as charged
+    assert ms.neutral_fraction(0.75) == pytest.approx(0.5, abs=0.01)
