@@ -45,8 +45,8 @@ def molecule_constants(sites: pd.DataFrame, site_pred: np.ndarray, given_atom: n
     against its kind (``drawn_charge`` per mol_id, from the curation: positive for an acid drawn as a
     cation, negative for a base drawn as an anion) is instead the step out of that charge, whichever
     sites it titrates (:meth:`~pkasite.models.microstates.Microstates.constant_at_charge`), still
-    credited to the same site row.  Reads ``mol_id``, ``kind``, ``atom`` and, when present, ``role`` and ``rank``; never the
-    value or the site it was attached to.
+    credited to the same site row.  Reads ``mol_id``, ``kind``, ``atom`` and, when present, ``role``
+    and ``rank``; never the value or the site it was attached to.
     """
     from pkasite.models.microstates import Microstates, site_holds
     interactions = interactions or {}

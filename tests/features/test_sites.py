@@ -576,48 +576,43 @@ def test_cyano_and_nitro_guanidines_are_not_bases(name, tautomers, base_types):
         assert {s.type for s in find_sites(mol) if s.kind == "base"} == base_types, (name, smiles)
 
 
-@pytest.mark.parametrize("name,smiles,kind,expected", [
+# drawings of a source that draws the titrating species: (name, SMILES, record kind, sites of that kind
+# drawn already titrated, drawn charge against the kind)
+DRAWINGS = [
     # a carboxylate drawn beside a phenol OH: one acid site already titrated
-    ("salicylate", "O=C([O-])c1ccccc1O", "acid", 1),
-    ("citrate trianion", "OC(CC(=O)[O-])(CC(=O)[O-])C(=O)[O-]", "acid", 3),
+    ("salicylate", "O=C([O-])c1ccccc1O", "acid", 1, 0),
+    ("citrate trianion", "OC(CC(=O)[O-])(CC(=O)[O-])C(=O)[O-]", "acid", 3, 0),
     # a protonated pyridine N of a 4-aminopyridine: its next constant is the dication's
-    ("4-(pyrrolidin-1-yl)pyridinium", "[NH+]1=CC=C(N2CCCC2)C=C1", "base", 1),
-    ("ethylenediammonium", "[NH3+]CC[NH3+]", "base", 2),
-    # a zwitterion drawing does not say which charge came first
-    ("glycine zwitterion, acid", "[NH3+]CC(=O)[O-]", "acid", 0),
-    ("glycine zwitterion, base", "[NH3+]CC(=O)[O-]", "base", 0),
-    # charge-separated groups are no titrated sites
-    ("pyridine N-oxide", "[O-][n+]1ccccc1", "base", 0),
-    ("4-nitrophenol", "[O-][N+](=O)c1ccc(O)cc1", "acid", 0),
-    # a charge of the other kind only
-    ("ethylammonium, acid record", "CC[NH3+]", "acid", 0),
-    ("benzoic acid", "OC(=O)c1ccccc1", "acid", 0),
-])
-def test_titrated_sites_counts_sites_drawn_in_their_charged_form(name, smiles, kind, expected):
-    assert titrated_sites(Chem.MolFromSmiles(smiles), kind) == expected, name
-
-
-def test_titrated_sites_needs_a_kind():
-    with pytest.raises(ValueError, match="kind"):
-        titrated_sites(Chem.MolFromSmiles("CC(=O)[O-]"), "zwitterion")
-
-
-@pytest.mark.parametrize("name,smiles,kind,expected", [
+    ("4-(pyrrolidin-1-yl)pyridinium", "[NH+]1=CC=C(N2CCCC2)C=C1", "base", 1, 0),
+    ("ethylenediammonium", "[NH3+]CC[NH3+]", "base", 2, 0),
     # an acid record drawn as a cation: the cation's first deprotonation, whichever site loses the proton
-    ("3-hydroxypyridinium", "Oc1ccc[nH+]c1", "acid", 1),
-    ("4-aminobutanoic acid cation", "[NH3+]CCCC(=O)O", "acid", 1),
-    ("ethylenediammonium, acid record", "[NH3+]CC[NH3+]", "acid", 2),
+    ("ethylenediammonium, acid record", "[NH3+]CC[NH3+]", "acid", 0, 2),
+    ("ethylammonium, acid record", "CC[NH3+]", "acid", 0, 1),
+    ("3-hydroxypyridinium", "Oc1ccc[nH+]c1", "acid", 0, 1),
+    ("4-aminobutanoic acid cation", "[NH3+]CCCC(=O)O", "acid", 0, 1),
+    ("3-hydroxypyridinium, base record", "Oc1ccc[nH+]c1", "base", 1, 0),
     # a base record drawn as an anion: the anion's first protonation
-    ("3-pyridinolate", "[O-]c1cccnc1", "base", -1),
-    ("glycinate", "NCC(=O)[O-]", "base", -1),
-    # a charge of the record's own kind, a zwitterion, charge-separated and permanent charges: nothing
-    ("3-hydroxypyridinium, base record", "Oc1ccc[nH+]c1", "base", 0),
-    ("salicylate, acid record", "O=C([O-])c1ccccc1O", "acid", 0),
-    ("glycine zwitterion", "[NH3+]CC(=O)[O-]", "acid", 0),
-    ("4-nitrophenol", "[O-][N+](=O)c1ccc(O)cc1", "acid", 0),
-    ("N-methylpyridinium-3-ol", "C[n+]1cccc(O)c1", "acid", 0),
-])
-def test_charge_against_kind_reads_the_drawn_species(name, smiles, kind, expected):
-    assert charge_against_kind(Chem.MolFromSmiles(smiles), kind) == expected, name
+    ("3-pyridinolate", "[O-]c1cccnc1", "base", 0, -1),
+    ("glycinate", "NCC(=O)[O-]", "base", 0, -1),
+    # a zwitterion drawing does not say which charge came first
+    ("glycine zwitterion, acid", "[NH3+]CC(=O)[O-]", "acid", 0, 0),
+    ("glycine zwitterion, base", "[NH3+]CC(=O)[O-]", "base", 0, 0),
+    # charge-separated groups and permanent charges are no titrated sites
+    ("pyridine N-oxide", "[O-][n+]1ccccc1", "base", 0, 0),
+    ("4-nitrophenol", "[O-][N+](=O)c1ccc(O)cc1", "acid", 0, 0),
+    ("N-methylpyridinium-3-ol", "C[n+]1cccc(O)c1", "acid", 0, 0),
+    ("benzoic acid", "OC(=O)c1ccccc1", "acid", 0, 0),
+]
+
+
+@pytest.mark.parametrize("name,smiles,kind,titrated,against", DRAWINGS, ids=[d[0] for d in DRAWINGS])
+def test_drawn_charges_of_the_titrating_species(name, smiles, kind, titrated, against):
+    mol = Chem.MolFromSmiles(smiles)
+    assert titrated_sites(mol, kind) == titrated, name
+    assert charge_against_kind(mol, kind) == against, name
+
+
+@pytest.mark.parametrize("count", [titrated_sites, charge_against_kind])
+def test_drawn_charges_need_a_kind(count):
     with pytest.raises(ValueError, match="kind"):
-        charge_against_kind(Chem.MolFromSmiles(smiles), "neutral")
+        count(Chem.MolFromSmiles("CC(=O)[O-]"), "zwitterion")
