@@ -223,6 +223,12 @@ def test_enough_reference_molecules():
         ("Sc1ccccn1", 6, "lactim_n"),
         ("Oc1cccnc1", 5, "pyridine_like_n"),
         ("Oc1cccc2cccnc12", 9, "pyridine_like_n"),  # 8-hydroxyquinoline: the OH is on the other ring; CRC
+        # their O-H and S-H: the lactam's protonation, 2-pyridone 0.75, 4-pyridone 3.2, pyridine-2-thione
+        # -1.0 (Albert & Phillips 1956, from memory); 3-hydroxypyridine's O-H is a phenol (8.75; same source)
+        ("Oc1ccccn1", 0, "lactim_oh"),
+        ("Oc1ccncc1", 0, "lactim_oh"),
+        ("Sc1ccccn1", 0, "lactim_oh"),
+        ("Oc1cccnc1", 0, "phenol"),
     ],
 )
 def test_site_types_of_textbook_groups(smiles, atom, site_type):
