@@ -110,32 +110,24 @@ def shared_charge_pairs(mol: Chem.Mol, atoms: Sequence[int]) -> np.ndarray:
     return out
 
 
+# a ring O-H / S-H (or its anion) and a ring N ortho or para to its carbon in one six-membered ring;
+# the index of that N in the match
+_LACTIM_PAIRS = tuple((Chem.MolFromSmarts(smarts), ring_n) for smarts, ring_n in (
+    ("[OX2H1,OX1-,SX2H1,SX1-]-c:[nX2,nX3H1+;r6]", 2),
+    ("[OX2H1,OX1-,SX2H1,SX1-]-c1:a:a:[nX2,nX3H1+]:a:a:1", 4),
+))
+
+
 def lactim_pairs(mol: Chem.Mol, atoms: Sequence[int], kinds: Sequence[str]) -> np.ndarray:
     """Pairs (acid, base) of a lactim: an O or S acid on a ring carbon and a ring N ortho or para to
     that carbon in one six-membered ring (2- and 4-hydroxypyridine, 2-mercaptopyrimidine).  Their charged
     pair O- / N-H+ is no zwitterion but the neutral lactam (2-pyridone), the major form in water; see
     :class:`~pkasite.models.microstates.Microstates` ``tautomer``."""
-    atoms = [int(a) for a in atoms]
-    kinds = list(kinds)
-    n = len(atoms)
-    out = np.zeros((n, n), bool)
-    rings = [r for r in mol.GetRingInfo().AtomRings() if len(r) == 6]
-    if not rings:
-        return out
-    ring_carbon = {}
-    for i, (a, k) in enumerate(zip(atoms, kinds)):
-        atom = mol.GetAtomWithIdx(a)
-        if k == "acid" and atom.GetAtomicNum() in (8, 16) and atom.GetDegree() == 1:
-            c = atom.GetNeighbors()[0]
-            if c.GetIsAromatic() and c.GetAtomicNum() == 6:
-                ring_carbon[i] = c.GetIdx()
-    for i, c in ring_carbon.items():
-        for j, (a, k) in enumerate(zip(atoms, kinds)):
-            if k != "base" or mol.GetAtomWithIdx(a).GetAtomicNum() != 7 or not mol.GetAtomWithIdx(a).GetIsAromatic():
-                continue
-            for ring in rings:
-                if c in ring and a in ring:
-                    step = abs(ring.index(c) - ring.index(a))
-                    if min(step, 6 - step) in (1, 3):
-                        out[i, j] = out[j, i] = True
-    return out
+    atoms, kinds = np.asarray(atoms, int), np.asarray(kinds)
+    out = np.zeros((len(atoms), len(atoms)), bool)
+    for query, ring_n in _LACTIM_PAIRS:
+        for match in mol.GetSubstructMatches(query):
+            acid = (atoms == match[0]) & (kinds == "acid")
+            base = (atoms == match[ring_n]) & (kinds == "base")
+            out |= acid[:, None] & base[None, :]
+    return out | out.T

@@ -17,7 +17,7 @@ from functools import lru_cache
 from importlib import resources
 from pathlib import Path
 from types import MappingProxyType
-from typing import Mapping, Sequence
+from typing import Mapping, NamedTuple, Sequence
 
 import yaml
 from rdkit import Chem
@@ -400,43 +400,35 @@ def _charged_form(mol: Chem.Mol, site: Site) -> bool:
     return charge < 0 if site.kind == "acid" else charge > 0
 
 
-def titrated_sites(mol: Chem.Mol, kind: str, catalog: Catalog | None = None) -> int:
-    """How many sites of ``kind`` ``mol`` is drawn with already titrated: acid sites drawn as their
-    anion, base sites drawn protonated (charge-separated pairs such as N-oxides are no sites, see
-    :func:`find_sites`).  0 when a site of the other kind is drawn charged as well: a zwitterion drawing
-    does not say which of its charges came first.
+class DrawnTitration(NamedTuple):
+    """What a drawing of the titrating species says about the measured step (:func:`drawn_titration`)."""
+    titrated: int      # sites of the record's kind drawn already titrated (0 for a zwitterion drawing)
+    against_kind: int  # net drawn charge when it runs against the kind (acid drawn as a cation: > 0)
 
-    A source that draws each record as the species that gives up (acid) or takes up (base) the measured
-    proton shows, by such charges, that the record is a later constant of its kind: a carboxylate
-    drawn beside a phenol OH with an acid value is the phenol's constant.
+
+def drawn_titration(mol: Chem.Mol, kind: str, catalog: Catalog | None = None) -> DrawnTitration:
+    """The sites ``mol`` is drawn with charged (an acid site as its anion, a base site protonated;
+    charge-separated pairs such as N-oxides and permanent charges are no sites, see :func:`find_sites`),
+    read for a record of ``kind`` from a source that draws each record as the species that gives up
+    (acid) or takes up (base) the measured proton:
+
+    - ``titrated``: how many sites of ``kind`` are drawn already titrated, so the record is a later
+      constant of its kind (a carboxylate drawn beside a phenol OH with an acid value is the phenol's
+      constant); 0 when a site of the other kind is drawn charged as well: a zwitterion drawing does not
+      say which of its charges came first.
+    - ``against_kind``: the net charge of the charged sites when it runs against ``kind`` (positive for
+      an acid drawn as a cation, negative for a base drawn as an anion; else 0): the record is the step
+      out of that charge, whichever site it titrates (3-hydroxypyridine drawn as its pyridinium cation
+      with an acid value is the cation's first deprotonation; drawn as its phenolate with a base value,
+      the anion's first protonation).
     """
     if kind not in KINDS:
         raise ValueError(f"kind must be one of {KINDS}, got {kind!r}")
-    charged = _charged_sites(mol, catalog)
-    if any(s.kind != kind for s in charged):
-        return 0
-    return len({s.atom for s in charged})
-
-
-def charge_against_kind(mol: Chem.Mol, kind: str, catalog: Catalog | None = None) -> int:
-    """The net charge of the sites ``mol`` is drawn with charged (+1 per protonated base site, -1 per
-    acid anion; charge-separated pairs and permanent charges are no sites) when it runs against
-    ``kind``: positive for an acid drawn as a cation, negative for a base drawn as an anion; else 0.
-
-    A source that draws the species giving up (acid) or taking up (base) the measured proton shows by
-    such a drawing which step was measured: 3-hydroxypyridine drawn as its pyridinium cation with an
-    acid value is the cation's first deprotonation, whichever site loses the proton; drawn as its
-    phenolate with a base value, the anion's first protonation.
-    """
-    if kind not in KINDS:
-        raise ValueError(f"kind must be one of {KINDS}, got {kind!r}")
-    atoms = {s.atom for s in _charged_sites(mol, catalog)}
+    charged = [s for s in find_sites(mol, catalog) if _charged_form(mol, s)]
+    atoms = {s.atom for s in charged}
+    titrated = 0 if any(s.kind != kind for s in charged) else len(atoms)
     charge = sum(mol.GetAtomWithIdx(a).GetFormalCharge() for a in atoms)
-    return charge if (charge > 0 if kind == "acid" else charge < 0) else 0
-
-
-def _charged_sites(mol: Chem.Mol, catalog: Catalog | None) -> list[Site]:
-    return [s for s in find_sites(mol, catalog) if _charged_form(mol, s)]
+    return DrawnTitration(titrated, charge if (charge > 0 if kind == "acid" else charge < 0) else 0)
 
 
 # ----------------------------------------------------------------------------- label assignment

@@ -190,15 +190,15 @@ def drawing_charges(rows: pd.DataFrame, rank_kinds=KINDS, against_kind: bool = T
     Both columns read the largest fragment of ``input_smiles``, never the value:
 
     - ``titrated``, for rows of ``rank_kinds``: how many sites of its kind the drawing shows already
-      titrated (:func:`~pkasite.features.sites.titrated_sites`).  Such a record is at least its
+      titrated (:func:`~pkasite.features.sites.drawn_titration`).  Such a record is at least its
       compound's constant n + 1 of the kind: a base record drawn as 4-(pyrrolidin-1-yl)pyridinium is the
       dication's constant, not the pyridine's pKaH.
     - ``against_kind``, with ``against_kind``: the drawn charge of its sites when it runs against the
-      kind (:func:`~pkasite.features.sites.charge_against_kind`): an acid record drawn as a cation is
+      kind (the same function's ``against_kind``): an acid record drawn as a cation is
       the step that takes that charge down by one, a base record drawn as an anion the step that takes
       it up by one.
     """
-    from pkasite.features.sites import charge_against_kind, titrated_sites
+    from pkasite.features.sites import drawn_titration
     from pkasite.features.standardize import StructureError, parent_fragment, parse_smiles
 
     out = pd.DataFrame({"titrated": 0, "against_kind": 0}, index=rows.index, dtype="int64")
@@ -214,10 +214,11 @@ def drawing_charges(rows: pd.DataFrame, rank_kinds=KINDS, against_kind: bool = T
             mol = parent_fragment(parse_smiles(smiles))
         except StructureError:
             continue
+        drawn = drawn_titration(mol, kind)
         if kind in rank_kinds:
-            out.at[label, "titrated"] = titrated_sites(mol, kind)
+            out.at[label, "titrated"] = drawn.titrated
         if against_kind:
-            out.at[label, "against_kind"] = charge_against_kind(mol, kind)
+            out.at[label, "against_kind"] = drawn.against_kind
     return out
 
 

@@ -40,8 +40,8 @@ def molecule_constants(sites: pd.DataFrame, site_pred: np.ndarray, given_atom: n
     prediction.  Otherwise the constant is the measurement's macroscopic constant of its kind and rank
     (first acid step, or first base step counted from the basic end) of the molecule's microstates
     (:class:`~pkasite.models.microstates.Microstates`, all its sites of both kinds, pair terms from
-    ``interactions``: mol_id -> (rows, W, exclusive, lactim pairs); without an entry the sites are
-    independent), credited to the rank-th strongest candidate site.  A measurement drawn with a charge
+    ``interactions``: mol_id -> (rows, W, exclusive); without an entry the sites are independent),
+    credited to the rank-th strongest candidate site.  A measurement drawn with a charge
     against its kind (``drawn_charge`` per mol_id, from the curation: positive for an acid drawn as a
     cation, negative for a base drawn as an anion) is instead the step out of that charge, whichever
     sites it titrates (:meth:`~pkasite.models.microstates.Microstates.constant_at_charge`), still
@@ -81,7 +81,7 @@ def molecule_constants(sites: pd.DataFrame, site_pred: np.ndarray, given_atom: n
         charge = 0 if drawn_charge is None else int(drawn_charge[m])
         coupled = len(cand) > 1 or charge != 0
         if not coupled and m in interactions:
-            irows, iW = interactions[m][:2]
+            irows, iW, _ = interactions[m]
             i = int(np.flatnonzero(irows == row)[0])
             coupled = bool(np.any(iW[i] != 0))
         # a lone candidate without pair terms is independent of the other sites: its macro constant is
@@ -89,7 +89,7 @@ def molecule_constants(sites: pd.DataFrame, site_pred: np.ndarray, given_atom: n
         if len(ok) > 1 and coupled:
             W = ex = None
             if m in interactions:
-                irows, iW, iex = interactions[m][:3]
+                irows, iW, iex = interactions[m]
                 pos = {int(x): i for i, x in enumerate(irows)}
                 sel = [pos[int(x)] for x in ok]
                 W, ex = iW[np.ix_(sel, sel)], iex[np.ix_(sel, sel)]

@@ -22,6 +22,7 @@ from rdkit.Chem import Descriptors
 from pkasite.features.fingerprints import site_neighbourhood_bits
 from pkasite.features.graph import atoms_of
 from pkasite.features.site_features import featurize_sites
+from pkasite.features.site_pairs import lactim_pairs
 from pkasite.features.sites import KINDS, find_sites, load_catalog
 from pkasite.features.standardize import LACTIM_WARNING, StructureError, lactim_drawing, quiet_rdkit, standardize_mol
 from pkasite.models.domain import similarity_bin, tanimoto_max
@@ -244,11 +245,13 @@ def _major_species(mol: Chem.Mol, atoms, kinds, protonated) -> str:
 def molecule_microstates(mol: Chem.Mol, atoms, kinds, pka, priors, interactions,
                          window: tuple[float, float] = WINDOW) -> Microstates:
     """The molecule's microstates: its sites with their predicted pKa, pair terms from the bundle's
-    interaction model, tautomeric pairs exclusive, weak sites held (see :mod:`pkasite.models.microstates`)."""
+    interaction model, tautomeric pairs exclusive, weak sites held, lactim pairs counted as neutral (see
+    :mod:`pkasite.models.microstates`)."""
     kinds = np.asarray(kinds)
     W = ex = taut = None
     if len(atoms) > 1:
-        W, ex, taut = pair_terms(mol, atoms, kinds, interactions)
+        W, ex = pair_terms(mol, atoms, kinds, interactions)
+        taut = lactim_pairs(mol, atoms, kinds)
     weak, strong = site_holds(kinds, priors, pka, window)
     return Microstates(np.asarray(pka, float), kinds, W, window=window, exclusive=ex, hold=weak, hold_charged=strong,
                        tautomer=taut)

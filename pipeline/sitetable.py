@@ -35,7 +35,7 @@ class SiteTable:
     _constants_memo: tuple | None = None  # evaluation.table_constants: (key, constants) of the last predictions
 
     def interactions(self) -> dict:
-        """Per mol_id: (site rows, pair matrix W, exclusive pairs, lactim pairs) of the microstate model, for molecules
+        """Per mol_id: (site rows, pair matrix W, exclusive pairs) of the microstate model, for molecules
         with 2+ sites."""
         if self._interactions is None:
             from pkasite.models.microstates import default_interaction_model
@@ -68,16 +68,16 @@ class SiteTable:
         }
 
 
-def pair_terms(mol: Chem.Mol, atoms, kinds, model) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """The pair matrix ``W``, the exclusive pairs and the lactim pairs of the microstate model for the
-    sites ``atoms`` (of ``kinds``) of ``mol``, under the interaction model ``model``: the one place
-    training and prediction get them from."""
-    from pkasite.features.site_pairs import lactim_pairs, pair_geometry, shared_charge_pairs, shortest_path_counts
+def pair_terms(mol: Chem.Mol, atoms, kinds, model) -> tuple[np.ndarray, np.ndarray]:
+    """The pair matrix ``W`` and the exclusive pairs of the microstate model for the sites ``atoms``
+    (of ``kinds``) of ``mol``, under the interaction model ``model``: the one place training and
+    prediction get them from."""
+    from pkasite.features.site_pairs import pair_geometry, shared_charge_pairs, shortest_path_counts
     from pkasite.models.microstates import exclusive_pairs
     kinds = np.asarray(kinds)
     d, conj = pair_geometry(mol, atoms)
     W = model.matrix(d, conj, kinds, shared_charge_pairs(mol, atoms), shortest_path_counts(mol, atoms))
-    return W, exclusive_pairs(kinds, d, conj), lactim_pairs(mol, atoms, kinds)
+    return W, exclusive_pairs(kinds, d, conj)
 
 
 def measurement_rank(rec) -> int:

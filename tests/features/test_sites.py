@@ -18,7 +18,6 @@ from rdkit import Chem, RDLogger
 
 from pkasite.features.standardize import standardize_mol
 from pkasite.features.sites import (
-    charge_against_kind,
     Assignment,
     CatalogError,
     NoSiteError,
@@ -26,9 +25,9 @@ from pkasite.features.sites import (
     SiteError,
     assign_site,
     assignment_confidence,
+    drawn_titration,
     find_sites,
     load_catalog,
-    titrated_sites,
 )
 
 RDLogger.DisableLog("rdApp.*")
@@ -613,12 +612,11 @@ DRAWINGS = [
 
 @pytest.mark.parametrize("name,smiles,kind,titrated,against", DRAWINGS, ids=[d[0] for d in DRAWINGS])
 def test_drawn_charges_of_the_titrating_species(name, smiles, kind, titrated, against):
-    mol = Chem.MolFromSmiles(smiles)
-    assert titrated_sites(mol, kind) == titrated, name
-    assert charge_against_kind(mol, kind) == against, name
+    drawn = drawn_titration(Chem.MolFromSmiles(smiles), kind)
+    assert drawn.titrated == titrated, name
+    assert drawn.against_kind == against, name
 
 
-@pytest.mark.parametrize("count", [titrated_sites, charge_against_kind])
-def test_drawn_charges_need_a_kind(count):
+def test_drawn_charges_need_a_kind():
     with pytest.raises(ValueError, match="kind"):
-        count(Chem.MolFromSmiles("CC(=O)[O-]"), "zwitterion")
+        drawn_titration(Chem.MolFromSmiles("CC(=O)[O-]"), "zwitterion")
