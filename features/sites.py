@@ -549,3 +549,28 @@ def assign_site(
     nth = "" if pos == 0 else f"number {pos + 1} by "
     reason = f"{nth}{extreme} {source} ({site_value(chosen):.2f}) among {len(ranked)} distinct {kind} site(s)"
     return Assignment(chosen.atom, chosen.type, confidence, reason)
+
+
+def numbering_contradicted(mol: Chem.Mol, kind: str, rank: int, value: float, margin: float = 2.0,
+                           catalog: Catalog | None = None) -> bool:
+    """Whether a value a source numbers as the molecule's ``rank``-th constant of ``kind`` (``rank > 1``)
+    cannot be that constant by the catalog's ranges while it can be a stronger one.
+
+    The sites are ordered as :func:`assign_site` orders them without predictions (catalog prior, one
+    per class of symmetry-equivalent atoms). The numbering is contradicted when the value lies more than
+    ``margin`` outside the range of the rank-th site and of every weaker one, and within ``margin`` of
+    the range of a stronger one: glycolic acid's 3.67 numbered as its second acid constant can only be
+    the carboxylic acid's (the alcohol's range is 9-17). Either the number or the value is wrong.
+    """
+    catalog = catalog or load_catalog()
+    candidates = [s for s in find_sites(mol, catalog) if s.kind == kind]
+    if rank <= 1 or len(candidates) < 2:
+        return False
+    sign = 1.0 if kind == "acid" else -1.0
+    ranked = sorted(_distinct_candidates(mol, candidates), key=lambda s: (sign * s.prior, s.atom))
+    pos = min(rank, len(ranked)) - 1
+
+    def fits(site: Site) -> bool:
+        return catalog.by_name[site.type].outside(value) <= margin
+
+    return pos > 0 and not any(fits(s) for s in ranked[pos:]) and any(fits(s) for s in ranked[:pos])

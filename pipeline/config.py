@@ -80,6 +80,9 @@ class CurationConfig(_Strict):
     # such a record drawn with a charge against its kind (an acid as a cation, a base as an anion) is the
     # step out of the drawn charge (measurements: drawn_charge); false: every drawn_charge is 0
     charge_against_kind: bool = True
+    # a value ranked as a later constant that only a stronger site's catalog range (widened by this many
+    # log units) can hold is rejected as numbering_conflict; null: no check
+    numbering_range_margin: float | None = 2.0
     pkw: float = 14.0
     conflict_spread: float = 2.0
     conflict_action: Literal["drop", "flag"] = "drop"

@@ -383,12 +383,39 @@ def _rank_constants(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFra
     rows = rows.assign(constant_rank=ranked["constant_rank"].astype(object).where(~named, None),
                        ranked_by_drawing=raised & ~named,
                        drawn_charge=drawing["against_kind"].where(~named, 0))
+    contradicted = _numbering_conflicts(rows, cfg.numbering_range_margin)
+    rejects = [_reject_row({**r, "smiles": r["input_smiles"]}, "numbering_conflict", _conflict_detail(r))
+               for r in rows[contradicted].to_dict("records")]
+    rows, ranked = rows[~contradicted], ranked[~contradicted]
     if not cfg.first_constant_only:
-        return rows, []
-    later = ~named & (ranked["constant_rank"] > 1)
-    rejects = [_reject_row({**r, "smiles": r["input_smiles"]}, "later_constant", _later_detail(r, stronger))
-               for r, stronger in zip(rows[later].to_dict("records"), ranked.loc[later, "stronger_pka"])]
+        return rows, rejects
+    later = ~rows["site_atom"].notna() & (ranked["constant_rank"] > 1)
+    rejects += [_reject_row({**r, "smiles": r["input_smiles"]}, "later_constant", _later_detail(r, stronger))
+                for r, stronger in zip(rows[later].to_dict("records"), ranked.loc[later, "stronger_pka"])]
     return rows[~later], rejects
+
+
+def _numbering_conflicts(rows: pd.DataFrame, margin: float | None) -> pd.Series:
+    """Rows ranked as a later constant whose value only a stronger site's catalog range can hold
+    (:func:`~pkasite.features.sites.numbering_contradicted`); all False when ``margin`` is None."""
+    from pkasite.features.sites import numbering_contradicted
+    from pkasite.features.standardize import parse_smiles
+
+    out = pd.Series(False, index=rows.index)
+    if margin is None:
+        return out
+    rank = pd.to_numeric(rows["constant_rank"], errors="coerce").fillna(1)
+    for label in rows.index[rank > 1]:
+        r = rows.loc[label]
+        out[label] = numbering_contradicted(parse_smiles(r["smiles"]), r["kind"], int(rank[label]),
+                                            float(r["pka"]), margin)
+    return out
+
+
+def _conflict_detail(row: dict) -> str:
+    return (f"{row['source']} ranks this {row['kind']} value {row['pka']:g} as the compound's {row['kind']} "
+            f"constant {int(row['constant_rank'])}, but only a stronger site's typical range can hold it; "
+            "the number or the value is wrong")
 
 
 def _later_detail(row: dict, stronger: float) -> str:

@@ -28,6 +28,7 @@ from pkasite.features.sites import (
     drawn_titration,
     find_sites,
     load_catalog,
+    numbering_contradicted,
 )
 
 RDLogger.DisableLog("rdApp.*")
@@ -620,3 +621,23 @@ def test_drawn_charges_of_the_titrating_species(name, smiles, kind, titrated, ag
 def test_drawn_charges_need_a_kind():
     with pytest.raises(ValueError, match="kind"):
         drawn_titration(Chem.MolFromSmiles("CC(=O)[O-]"), "zwitterion")
+
+
+@pytest.mark.parametrize("smiles,kind,rank,value,contradicted", [
+    # alpha-hydroxy and alpha-mercapto acids: the second acid site is the alcohol (typical 9-17) or the
+    # thiol (7.5-11.5); a value near 3.5 belongs to the carboxylic acid (glycolic acid 3.83, thioglycolic
+    # acid 3.6 and 10.5, CRC Handbook of Chemistry and Physics, from memory)
+    ("OCC(=O)O", "acid", 2, 3.7, True),
+    ("SCC(=O)O", "acid", 2, 3.4, True),
+    ("SCC(=O)O", "acid", 2, 10.5, False),
+    ("SCC(=O)O", "acid", 1, 3.4, False),     # a first constant is never contradicted
+    ("OC(=O)c1ccccc1O", "acid", 2, 13.6, False),  # salicylic acid's phenol, 13.6 (Serjeant & Dempsey, from memory)
+    # N,N-dimethylethylenediamine's second base constant is the primary amine's or the tertiary's, both
+    # aliphatic amines: any ordinary amine value fits one of them
+    ("CN(C)CCN", "base", 2, 6.3, False),
+    # a dialkylaniline numbered as the second base beside an aliphatic amine cannot be at 10.9
+    ("CN(C)c1ccc(CCN(C)C)cc1", "base", 2, 10.9, True),
+    ("CCO", "acid", 2, 3.0, False),          # one site: nothing to compare with
+])
+def test_numbering_contradicted_by_the_catalog_ranges(smiles, kind, rank, value, contradicted):
+    assert numbering_contradicted(Chem.MolFromSmiles(smiles), kind, rank, value) is contradicted

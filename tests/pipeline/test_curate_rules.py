@@ -183,3 +183,28 @@ def test_every_row_is_accounted_for():
     res = curate(raw(*rows), CFG)
     assert res.summary["rows_in"] == 4 and res.summary["rows_kept"] + res.summary["rows_rejected"] == 4
     assert res.summary["accounted"]
+
+
+# Per-kind numbering (1 = the strongest constant of the kind). The second acid constant of glycolic acid
+# is its alcohol's, far above the aqueous window (ethanol 15.9, CRC Handbook of Chemistry and Physics,
+# from memory), so a value of 3.7 numbered 2 can only be the carboxylic acid's (glycolic acid 3.83, CRC
+# Handbook, from memory): the number or the value is wrong. Salicylic acid's second constant is its
+# phenol's (13.6, Serjeant & Dempsey, from memory), inside the phenol's typical range: kept.
+NUMBERED_ROWS = [
+    {"smiles": "OCC(=O)O", "kind": "acid", "value_text": "3.7", "constant_index": 2, "group_key": "G",
+     "constant_numbering": "per_kind"},
+    {"smiles": "OC(=O)c1ccccc1O", "kind": "acid", "value_text": "13.6", "constant_index": 2, "group_key": "S",
+     "constant_numbering": "per_kind"},
+]
+
+
+def test_later_rank_no_weaker_site_can_hold_is_a_numbering_conflict():
+    res = curate(raw(*NUMBERED_ROWS), CFG)
+    assert reasons(res) == {"r1": "numbering_conflict"}
+    detail = res.rejects.loc[0, "detail"]
+    assert "constant 2" in detail and "3.7" in detail
+    assert ranks_by_member(res) == {"t:r2": 2}
+    assert res.summary["accounted"]
+    # the check off: both kept with the rank the numbering gives
+    off = curate(raw(*NUMBERED_ROWS), CurationConfig(numbering_range_margin=None))
+    assert off.rejects.empty and ranks_by_member(off) == {"t:r1": 2, "t:r2": 2}
