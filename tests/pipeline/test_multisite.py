@@ -1,7 +1,7 @@
 """Molecules with several sites through the whole prediction path (shipped model, microstate model).
 
 Measured values from memory: CRC Handbook of Chemistry and Physics, 97th ed. (acetic acid, glycine,
-ethylenediamine, piperazine, citric acid, 4-aminopyridine, histamine), A. Albert and J. N. Phillips,
+ethylenediamine, piperazine, citric acid, 4-aminopyridine, histamine, thioglycolic acid), A. Albert and J. N. Phillips,
 J. Chem. Soc. 1956, 1294 (2-hydroxypyridine), drug data compilations such as Clarke's Analysis of Drugs
 and Poisons (metformin 12.4 and 2.8).  Tolerances reflect the model's error (about 1 log unit
 RMSE on held-out molecules), the structural checks (how many constants, which charge) are tight.
@@ -25,6 +25,7 @@ MOLECULES = {
     "2-hydroxypyridine": "Oc1ccccn1",
     "histamine": "NCCc1cnc[nH]1",
     "metformin": "CN(C)C(=N)NC(=N)N",
+    "thioglycolic acid": "OC(=O)CS",
 }
 
 
@@ -85,6 +86,15 @@ def test_citric_acid_three_constants(predicted):
     assert m["charge_at_ph"] < -2.5
     # the tertiary alcohol does not pose as a fourth constant
     assert len([x for x in m["macro_pkas_all"].split(";") if x]) == 3
+
+
+def test_thioglycolic_acid_carboxyl_first_then_thiol(predicted):
+    # 3.6 (carboxylic acid) and 10.5 (thiol), CRC Handbook, from memory: a monoanion at pH 7.4
+    m = predicted[0].loc["thioglycolic acid"]
+    assert _macro(m, 0.0, 14.0) == pytest.approx([3.6, 10.5], abs=0.8)
+    assert m["charge_at_ph"] == pytest.approx(-1.0, abs=0.05)
+    sites = predicted[1][predicted[1]["id"] == "thioglycolic acid"].set_index("site_type")
+    assert sites.loc["carboxylic_acid", "pka"] < sites.loc["thiol", "pka"] - 4
 
 
 def test_4_aminopyridine_has_one_constant_at_the_ring_nitrogen(predicted):
