@@ -574,3 +574,51 @@ def numbering_contradicted(mol: Chem.Mol, kind: str, rank: int, value: float, ma
         return catalog.by_name[site.type].outside(value) <= margin
 
     return pos > 0 and not any(fits(s) for s in ranked[pos:]) and any(fits(s) for s in ranked[:pos])
+
+
+# ----------------------------------------------------------------------------- a source's group names
+
+#: Acid sites that are oxo-acid O-H groups: a source calls them by their group (COOH, SO3H, PO3H2), so its
+#: plain "OH" means one of the other hydroxyls (alcohol, phenol, enol, oxime, ...).
+_OXOACID_TYPES = frozenset({
+    "carboxylic_acid", "thiocarboxylic_acid", "peroxy_acid", "sulfonic_acid", "sulfate_monoester_oh",
+    "sulfamic_acid", "sulfinic_acid", "phosphonic_acid_oh", "phosphate_oh", "phosphorus_oxoacid_oh",
+    "arsonic_acid_oh", "selenium_oxoacid_oh", "boronic_acid_oh",
+})
+
+#: How a compilation names the titrating group of an acid record (upper case, letters and digits only)
+#: and which candidate sites (site type, element of the site atom) each name can mean.
+_ACID_GROUPS = {
+    "COOH": lambda t, el: t == "carboxylic_acid",
+    "CO2H": lambda t, el: t == "carboxylic_acid",
+    "SO2NH": lambda t, el: el == "N" and "sulfon" in t,
+    "SO2NHH": lambda t, el: el == "N" and "sulfon" in t,
+    "PO3H2": lambda t, el: t in ("phosphonic_acid_oh", "phosphate_oh"),
+    "SH": lambda t, el: el == "S",
+    "OH": lambda t, el: el == "O" and t not in _OXOACID_TYPES,
+    "HOFOH": lambda t, el: el == "O" and t not in _OXOACID_TYPES,
+    "NH": lambda t, el: el == "N",
+    "CH": lambda t, el: el == "C",
+}
+
+
+def group_site(mol: Chem.Mol, kind: str, group: str, catalog: Catalog | None = None) -> int | None:
+    """The site a source's name of the titrating group points to: the atom of the one distinct candidate
+    site of ``kind`` that the name can mean, when the molecule has several; None otherwise.
+
+    Only acid names are read (COOH, CO2H, SO2NH, PO3H2, SH, OH, NH, CH, with or without hyphens); a
+    plain OH means a hydroxyl other than an oxo-acid's. Base names in the compilations (NH+, NH2, R2NH,
+    N) rarely single out one of several nitrogens and are not read. Lists ("NH, NH"), question marks and
+    names that fit no candidate or several give None: the record keeps its rank and value-free site.
+    """
+    if kind != "acid" or not isinstance(group, str):
+        return None
+    accepts = _ACID_GROUPS.get(re.sub(r"[^A-Z0-9]", "", group.upper()))
+    if accepts is None or "," in group:
+        return None
+    candidates = [s for s in find_sites(mol, catalog) if s.kind == kind]
+    distinct = _distinct_candidates(mol, candidates) if len(candidates) > 1 else candidates
+    if len(distinct) < 2:
+        return None
+    chosen = [s for s in distinct if accepts(s.type, mol.GetAtomWithIdx(s.atom).GetSymbol())]
+    return chosen[0].atom if len(chosen) == 1 else None

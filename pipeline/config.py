@@ -83,6 +83,9 @@ class CurationConfig(_Strict):
     # a value ranked as a later constant that only a stronger site's catalog range (widened by this many
     # log units) can hold is rejected as numbering_conflict; null: no check
     numbering_range_margin: float | None = 2.0
+    # a record whose source names its titrating group ("COOH", "SO2-NH-") gets the one candidate site that
+    # name singles out as its site atom (acid records; measurements: site_atom)
+    group_sites: bool = True
     pkw: float = 14.0
     conflict_spread: float = 2.0
     conflict_action: Literal["drop", "flag"] = "drop"

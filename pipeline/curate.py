@@ -365,6 +365,7 @@ def _curate_row(label, row: dict, cfg: CurationConfig, numbering_later: set, cac
             "group_key": row["group_key"], "constant_index": row["constant_index"],
             "constant_numbering": row.get("constant_numbering") or "",
             "draws_titrating_species": bool(row.get("draws_titrating_species")),
+            "site_group": str(row.get("site_group") or ""),
             "numbering_rule_later": site_atom is None and label in numbering_later}
 
 
@@ -376,6 +377,8 @@ def _rank_constants(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFra
     ranked = constant_ranks(rows)
     ranked["constant_rank"] += unlisted_stronger_acids(rows)
     drawing = drawing_charges(rows, cfg.charged_drawing_ranks, cfg.charge_against_kind)
+    if cfg.group_sites:
+        rows = _name_sites_from_groups(rows, drawing["against_kind"])
     drawn = drawing["titrated"]
     raised = ranked["constant_rank"] < drawn + 1
     ranked["constant_rank"] = ranked["constant_rank"].where(~raised, drawn + 1)
@@ -393,6 +396,26 @@ def _rank_constants(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFra
     rejects += [_reject_row({**r, "smiles": r["input_smiles"]}, "later_constant", _later_detail(r, stronger))
                 for r, stronger in zip(rows[later].to_dict("records"), ranked.loc[later, "stronger_pka"])]
     return rows[~later], rejects
+
+
+def _name_sites_from_groups(rows: pd.DataFrame, against_kind: pd.Series) -> pd.DataFrame:
+    """Rows that name no site atom but whose source names the titrating group, when the name singles out
+    one candidate site (:func:`~pkasite.features.sites.group_site`), get that site atom and
+    ``site_from_group``; the source's word, not the value, picks the site.  Rows drawn against their kind
+    keep their step out of the drawn charge instead (a named site would compare the neutral molecule's
+    site value with it)."""
+    from pkasite.features.sites import group_site
+    from pkasite.features.standardize import parse_smiles
+
+    rows = rows.assign(site_from_group=False)
+    todo = rows["site_atom"].isna() & (against_kind == 0) & (rows["site_group"].str.strip() != "")
+    for label in rows.index[todo]:
+        r = rows.loc[label]
+        atom = group_site(parse_smiles(r["smiles"]), r["kind"], r["site_group"])
+        if atom is not None:
+            rows.at[label, "site_atom"] = atom
+            rows.at[label, "site_from_group"] = True
+    return rows
 
 
 def _numbering_conflicts(rows: pd.DataFrame, margin: float | None) -> pd.Series:
@@ -549,6 +572,7 @@ def _constant_counts(merged: list[dict]) -> dict:
         "later_constants_kept": sum(1 for r in merged if _key(r["constant_rank"]) > 1),
         "ranked_by_drawing": sum(1 for r in merged if r.get("ranked_by_drawing")),
         "drawn_against_kind": sum(1 for r in merged if r.get("drawn_charge", 0)),
+        "sites_from_groups": sum(1 for r in merged if r.get("site_from_group")),
         "first_constants_recovered": sum(1 for r in recovered if _key(r["constant_rank"]) == 1),
         "rows_recovered": len(recovered),
     }
@@ -584,8 +608,8 @@ def summarize(raw: pd.DataFrame, measurements: pd.DataFrame, rejects: pd.DataFra
         "measurements_by_rank": _by_rank(measurements),
         "replicate_groups": int((measurements["n"] > 1).sum()) if len(measurements) else 0,
         "flagged_conflicts": int(measurements["conflict"].sum()) if len(measurements) else 0,
-        **(constants or {"later_constants_kept": 0, "ranked_by_drawing": 0, "first_constants_recovered": 0,
-                         "rows_recovered": 0}),
+        **(constants or {"later_constants_kept": 0, "ranked_by_drawing": 0, "drawn_against_kind": 0,
+                         "sites_from_groups": 0, "first_constants_recovered": 0, "rows_recovered": 0}),
     }
     summary["accounted"] = summary["rows_kept"] + summary["rows_rejected"] == summary["rows_in"]
     if not summary["accounted"]:
@@ -608,6 +632,8 @@ def format_summary(summary: dict) -> str:
     lines.append(f"drawn against kind {summary.get('drawn_against_kind', 0):>7}  (acid records drawn as cations, base "
                  f"records as anions: {summary.get('drawn_against_kind', 0)} drawn against their kind, each compared "
                  "with the step out of its drawn charge)")
+    lines.append(f"sites from groups  {summary.get('sites_from_groups', 0):>7}  (a site the source's name of the "
+                 "titrating group singles out among several)")
     lines.append(f"rows recovered     {summary['rows_recovered']:>7}  (kept, rejected by the former numbering rule; "
                  f"{summary['first_constants_recovered']} of them rank 1)")
     if summary["flagged_conflicts"]:

@@ -14,9 +14,12 @@ import pandas as pd
 
 RAW_COLUMNS = [
     "source", "file", "row", "record_id", "smiles", "smiles_fallback", "kind", "value_text", "is_pkb",
-    "constant_index", "constant_numbering", "group_key", "temperature_text", "method", "site_atom", "licence",
+    "constant_index", "constant_numbering", "group_key", "temperature_text", "method", "site_atom", "site_group",
+    "licence",
     "non_aqueous", "pressure", "assessment", "split", "in_house", "draws_titrating_species",
 ]
+# site_group: the source's free-text name of the titrating group ("COOH", "SO2-NH-", "?"; empty when it
+# gives none), read by curation.group_sites.
 # draws_titrating_species: the source draws each record as the species that gives up (acid) or takes
 # up (base) the measured proton, so a site of the record's kind drawn charged is already titrated and
 # the record is a later constant of its kind (curation.charged_drawing_ranks).
@@ -68,6 +71,7 @@ def _read_csv(path: Path) -> pd.DataFrame:
 def _frame(rows: dict, n: int) -> pd.DataFrame:
     rows.setdefault("smiles_fallback", [""] * n)
     rows.setdefault("draws_titrating_species", [False] * n)
+    rows.setdefault("site_group", [""] * n)
     out = pd.DataFrame({col: rows.get(col, [None] * n) for col in RAW_COLUMNS})
     out["row"] = out["row"].astype(int)
     return out
@@ -101,6 +105,7 @@ def parse_dwpka(path: Path, kind: str, split: str | None, licence: str, source: 
         "constant_numbering": [WHOLE_COMPOUND] * n, "group_key": df["InChI Key_QSARr"].tolist(),
         "temperature_text": df["temp"].tolist(),
         "method": df["method"].tolist(), "licence": [licence] * n, "non_aqueous": [""] * n,
+        "site_group": df["group"].tolist() if "group" in df.columns else [""] * n,
         "pressure": [""] * n, "assessment": [""] * n, "split": [split] * n, "in_house": [False] * n,
         # the compilation draws the acid form of an acid's step and the base form of a base's step (a
         # boronic acid's second constant is filed under the boronate anion, record 11489)

@@ -61,7 +61,7 @@ def raw_rows(*rows: dict) -> pd.DataFrame:
     from pkasite.pipeline.ingest import RAW_COLUMNS
 
     base = {"source": "t", "file": "t.csv", "smiles_fallback": "", "is_pkb": False, "constant_index": None,
-            "constant_numbering": "", "group_key": None, "temperature_text": "25", "method": "", "site_atom": None, "licence": "L",
+            "constant_numbering": "", "group_key": None, "temperature_text": "25", "method": "", "site_atom": None, "site_group": "", "licence": "L",
             "non_aqueous": "", "pressure": "", "assessment": "", "split": None, "in_house": False,
             "draws_titrating_species": False}
     out = []

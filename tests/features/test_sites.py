@@ -27,6 +27,7 @@ from pkasite.features.sites import (
     assignment_confidence,
     drawn_titration,
     find_sites,
+    group_site,
     load_catalog,
     numbering_contradicted,
 )
@@ -641,3 +642,31 @@ def test_drawn_charges_need_a_kind():
 ])
 def test_numbering_contradicted_by_the_catalog_ranges(smiles, kind, rank, value, contradicted):
     assert numbering_contradicted(Chem.MolFromSmiles(smiles), kind, rank, value) is contradicted
+
+
+def _site_atom_of(smiles: str, atom: int | None):
+    return None if atom is None else Chem.MolFromSmiles(smiles).GetAtomWithIdx(atom)
+
+
+@pytest.mark.parametrize("smiles,group,symbol", [
+    ("Cc1ccc(S(=O)(=O)NCC(=O)O)cc1", "SO2-NH-", "N"),   # N-tosylglycine: the sulfonamide N-H
+    ("Cc1ccc(S(=O)(=O)NCC(=O)O)cc1", "SO2NH-H", "N"),
+    ("Cc1ccc(S(=O)(=O)NCC(=O)O)cc1", "COOH", "O"),      # the carboxylic acid
+    ("OC(=O)c1ccccc1O", "OH", "O"),                     # salicylic acid: a plain OH is the phenol
+    ("OC(=O)CCc1nc2ccccc2[nH]1", "NH-C-N", None),       # a name the table does not read
+    ("OC(=O)CCc1nc2ccccc2[nH]1", "N-H", "N"),           # the benzimidazole N-H
+    ("OC(=O)c1ccc(O)c(O)c1", "OH", None),               # two distinct phenols: the name does not choose
+    ("Oc1cccc(O)c1", "OH", None),                       # resorcinol: one distinct site, nothing to choose
+    ("CC(=O)O", "COOH", None),                          # one site
+    ("OC(=O)c1ccccc1O", "?", None),
+    ("OC(=O)c1ccccc1O", "OH, ?", None),
+])
+def test_group_site_follows_the_source_name(smiles, group, symbol):
+    atom = _site_atom_of(smiles, group_site(Chem.MolFromSmiles(smiles), "acid", group))
+    assert (atom.GetSymbol() if atom is not None else None) == symbol
+    if atom is not None and group == "OH":
+        assert atom.GetNeighbors()[0].GetIsAromatic()  # the phenol's O-H, not the carboxylic acid's
+
+
+def test_group_site_reads_no_base_names():
+    assert group_site(Chem.MolFromSmiles("NCCc1ccncc1"), "base", "NH2") is None

@@ -208,3 +208,41 @@ def test_later_rank_no_weaker_site_can_hold_is_a_numbering_conflict():
     # the check off: both kept with the rank the numbering gives
     off = curate(raw(*NUMBERED_ROWS), CurationConfig(numbering_range_margin=None))
     assert off.rejects.empty and ranks_by_member(off) == {"t:r1": 2, "t:r2": 2}
+
+
+# N-tosylglycine drawn as its carboxylate, as the compilation draws the titrating species, with the
+# group the source names (its record 14681; the value is chosen to trigger the rule).
+TOSYLGLYCINE = "Cc1ccc(S(=O)(=O)NCC(=O)[O-])cc1"
+
+
+def test_a_named_group_that_singles_out_one_site_names_its_atom():
+    rows = [{"smiles": TOSYLGLYCINE, "kind": "acid", "value_text": "11.4", "site_group": "SO2-NH-",
+             "draws_titrating_species": True},
+            {"smiles": "OC(=O)c1ccccc1O", "kind": "acid", "value_text": "13.0", "site_group": "?"}]
+    res = curate(raw(*rows), CFG)
+    m = res.measurements.set_index("members")
+    atom = Chem.MolFromSmiles(m.loc["t:r1", "smiles"]).GetAtomWithIdx(int(m.loc["t:r1", "site_atom"]))
+    assert atom.GetSymbol() == "N" and atom.GetTotalNumHs() == 1  # the sulfonamide N-H
+    assert pd.isna(m.loc["t:r1", "constant_rank"])  # a named site needs no rank
+    assert pd.isna(m.loc["t:r2", "site_atom"]) and m.loc["t:r2", "constant_rank"] == 1  # "?" names nothing
+    assert res.summary["sites_from_groups"] == 1 and res.summary["accounted"]
+    off = curate(raw(*rows), CurationConfig(group_sites=False))
+    assert off.measurements["site_atom"].isna().all() and off.summary["sites_from_groups"] == 0
+
+
+def test_a_record_drawn_against_its_kind_keeps_its_step_not_the_named_group():
+    # 3-hydroxypyridine's acid value filed under the pyridinium cation (the compilation's record 10170
+    # style): the step out of the cation, not the neutral molecule's O-H, whatever group is named
+    row = {"smiles": "Oc1ccc[nH+]c1", "kind": "acid", "value_text": "4.9", "site_group": "OH",
+           "draws_titrating_species": True}
+    res = curate(raw(row), CFG)
+    m = res.measurements.iloc[0]
+    assert pd.isna(m["site_atom"]) and m["drawn_charge"] == 1 and res.summary["sites_from_groups"] == 0
+
+
+def test_empty_input_summary_has_every_count():
+    res = curate(raw({"smiles": "CC(=O)O", "kind": "acid", "value_text": "99"}), CFG)
+    assert res.measurements.empty
+    for key in ("later_constants_kept", "ranked_by_drawing", "drawn_against_kind", "sites_from_groups",
+                "rows_recovered"):
+        assert res.summary[key] == 0

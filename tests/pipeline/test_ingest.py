@@ -76,3 +76,13 @@ def test_inhouse_binary_file(tmp_path):
     path.write_bytes(b"\x89PNG\r\n\x1a\n\xff\xfe\x00\x00")
     with pytest.raises(InputFileError, match="not a text CSV"):
         parse_inhouse(path)
+
+
+def test_dwpka_parser_keeps_the_group_name(mirror):
+    """The compilation's free-text name of the titrating group travels as ``site_group``."""
+    from pkasite.pipeline.ingest import parse_dwpka
+
+    raw = parse_dwpka(mirror / "dwpka" / "acidic_train.csv", "acid", "train", "CC-BY-4.0").set_index("record_id")
+    # record 14681, N-tosylglycine: the compilation names its sulfonamide N-H, drawn beside a carboxylate
+    assert raw.loc["14681", "site_group"] == "SO2-NH-"
+    assert raw["site_group"].eq("?").sum() > 1000  # most rows name no group
