@@ -71,10 +71,29 @@ def quiet_rdkit() -> None:
     RDLogger.DisableLog("rdApp.*")
 
 
+def smiles_text_problem(text: str) -> str | None:
+    """Why a (stripped) SMILES text would be misread, else None.
+
+    RDKit ends a SMILES at the first whitespace and reads the rest as a name, so "CC O" parses as ethane
+    and a character outside ASCII can end it too ("CCÖ" reads as ethane): both would give a prediction for
+    another molecule. Whitespace is allowed only before a CXSMILES extension ("CC=CC |c:1|")."""
+    bad = next((i for i, ch in enumerate(text) if not ch.isascii() or (not ch.isprintable() and not ch.isspace())),
+               None)
+    if bad is not None:
+        return f"SMILES contains the character {text[bad]!r} at position {bad + 1}; SMILES are plain ASCII"
+    head, sep, rest = text.partition(next((ch for ch in text if ch.isspace()), " "))
+    if sep and not (rest.strip().startswith("|") and rest.strip().endswith("|")):
+        return (f"SMILES contains whitespace at position {len(head) + 1}; RDKit would read only {head!r} and take "
+                "the rest as a name")
+    return None
+
+
 def parse_smiles(smiles: str) -> Chem.Mol:
     """Parse a SMILES string, raising :class:`StructureError` with the reason."""
     if smiles is None or not str(smiles).strip():
         raise StructureError("empty SMILES")
+    if problem := smiles_text_problem(str(smiles).strip()):
+        raise StructureError(problem)
     quiet_rdkit()
     mol = Chem.MolFromSmiles(str(smiles).strip())
     if mol is None:

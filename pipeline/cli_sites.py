@@ -11,6 +11,7 @@ import click
 from rdkit import Chem, RDLogger
 
 from pkasite.features.sites import find_sites
+from pkasite.features.standardize import smiles_text_problem
 
 
 def _read_input(path: Path) -> Iterator[tuple[str, str | None]]:
@@ -37,6 +38,9 @@ def _describe(smiles: str, name: str | None) -> dict:
     record: dict = {"smiles": smiles}
     if name is not None:
         record["name"] = name
+    if smiles and (problem := smiles_text_problem(smiles)):
+        record["error"] = problem
+        return record
     mol = Chem.MolFromSmiles(smiles) if smiles else None
     if mol is None or mol.GetNumAtoms() == 0:
         record["error"] = "unreadable SMILES" if smiles else "empty SMILES"

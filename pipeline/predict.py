@@ -24,7 +24,8 @@ from pkasite.features.graph import atoms_of
 from pkasite.features.site_features import featurize_sites
 from pkasite.features.site_pairs import lactim_pairs
 from pkasite.features.sites import KINDS, find_sites, load_catalog
-from pkasite.features.standardize import LACTIM_WARNING, StructureError, lactim_drawing, quiet_rdkit, standardize_mol
+from pkasite.features.standardize import (LACTIM_WARNING, StructureError, lactim_drawing, quiet_rdkit, smiles_text_problem,
+                                         standardize_mol)
 from pkasite.models.domain import similarity_bin, tanimoto_max
 from pkasite.models.microstates import MAX_EXACT_SITES, Microstates, default_interaction_model, site_holds
 from pkasite.models.prior_blend import blend
@@ -96,6 +97,8 @@ def text_problem(text, fmt: str = "smiles") -> tuple[str, str] | None:
     limit = MAX_SMILES_CHARS if fmt == "smiles" else MAX_RECORD_CHARS
     if len(str(text)) > limit:
         return "too_large", f"{what} of {len(str(text))} characters (limit {limit})"
+    if fmt == "smiles" and (problem := smiles_text_problem(str(text).strip())):
+        return "unreadable_smiles", problem
     return None
 
 

@@ -16,7 +16,7 @@ from pathlib import Path
 import pytest
 from rdkit import Chem, RDLogger
 
-from pkasite.features.standardize import standardize_mol
+from pkasite.features.standardize import StructureError, parse_smiles, smiles_text_problem, standardize_mol
 from pkasite.features.sites import (
     Assignment,
     CatalogError,
@@ -670,3 +670,19 @@ def test_group_site_follows_the_source_name(smiles, group, symbol):
 
 def test_group_site_reads_no_base_names():
     assert group_site(Chem.MolFromSmiles("NCCc1ccncc1"), "base", "NH2") is None
+
+
+@pytest.mark.parametrize("text,problem", [
+    ("CC(=O)O", None),
+    ("CC=CC(=O)O |t:1|", None),                 # a CXSMILES extension after a space
+    ("CC O", "whitespace at position 3"),        # RDKit would read ethane and call "O" its name
+    ("CC\tO", "whitespace at position 3"),
+    ("CCÖ", "'Ö' at position 3"),                # RDKit stops at the non-ASCII character: ethane again
+    ("CC\x00O", "position 3"),
+])
+def test_smiles_text_that_rdkit_would_misread_is_refused(text, problem):
+    got = smiles_text_problem(text)
+    assert (got is None) if problem is None else (problem in got)
+    if problem is not None:
+        with pytest.raises(StructureError, match="position 3"):
+            parse_smiles(text)

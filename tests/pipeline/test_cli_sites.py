@@ -52,6 +52,15 @@ def test_csv_file(tmp_path):
     assert {s["kind"] for s in records[0]["sites"]} == {"acid", "base"}
 
 
+def test_csv_smiles_rdkit_would_truncate_is_an_error(tmp_path):
+    path = tmp_path / "in.csv"
+    path.write_text('id,smiles\nm1,"CC O"\nm2,"CCO"\n', encoding="utf-8")
+    result, records = _run(["--input", str(path)])
+    assert result.exit_code == 0
+    assert "whitespace" in records[0]["error"] and "sites" not in records[0]  # not ethane's (no) sites
+    assert records[1]["sites"][0]["type"] == "alcohol"
+
+
 def test_no_input_is_a_usage_error():
     result = CliRunner().invoke(sites_command, [])
     assert result.exit_code == 2

@@ -149,10 +149,14 @@ def test_bad_input_rows_get_a_status_and_nothing_is_dropped(tmp_path):
     assert len(df) == len(src) and list(df["id"]) == list(src["compound"]) and list(df.columns) == MOLECULE_COLUMNS
     status = dict(zip(df.index, df["status"]))
     assert [status[i] for i in range(len(df))] == [
-        "ok", "unreadable_smiles", "empty", "ok", "unsupported_element", "radical", "ok", "ok", "ok", "ok", "too_large"]
+        "ok", "unreadable_smiles", "empty", "ok", "unsupported_element", "radical", "ok", "ok", "ok", "ok", "too_large",
+        "unreadable_smiles", "unreadable_smiles", "ok"]
     w = df["warnings"].tolist()
     assert "mixture or salt" in w[3] and "isotope" in w[6] and "charged input" in w[7]
     assert "duplicate id (also row 1)" in w[8] and "no ionizable site" in w[9]
+    # RDKit alone would read "CC O" and "CCÖ" as ethane; a CXSMILES extension after a space is fine
+    assert "whitespace at position 3" in w[11] and "'CC'" in w[11] and "'Ö'" in w[12]
+    assert df["acid_pka"].iloc[13] != ""
 
 
 @pytest.mark.parametrize("content,message", [("", "the file is empty"),
