@@ -77,6 +77,8 @@ def smiles_text_problem(text: str) -> str | None:
     RDKit ends a SMILES at the first whitespace and reads the rest as a name, so "CC O" parses as ethane
     and a character outside ASCII can end it too ("CCÖ" reads as ethane): both would give a prediction for
     another molecule. Whitespace is allowed only before a CXSMILES extension ("CC=CC |c:1|")."""
+    if text.isascii() and text.isprintable() and " " not in text:
+        return None  # the usual case, checked at C speed
     bad = next((i for i, ch in enumerate(text) if not ch.isascii() or (not ch.isprintable() and not ch.isspace())),
                None)
     if bad is not None:
