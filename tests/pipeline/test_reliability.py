@@ -77,7 +77,12 @@ def test_fuzzed_library_every_row_back_in_order_with_a_status(fuzz_file, tmp_pat
     assert res.rows == len(df) == len(ids)
     assert df["id"].tolist() == [i if i else f"row{n}" for n, i in enumerate(ids, 1)]
     assert set(df["status"]) <= set(STATUSES) and "crashed" not in set(df["status"])
-    assert (df["status"] == "ok").sum() > 1000  # most unchanged or lightly mutated structures still score
+    assert (df["status"] == "ok").sum() > 750  # the unchanged structures (a quarter) and some mutated ones score
+    # a non-ASCII character or a line break inside would make RDKit read only the text before it, another
+    # molecule: such rows are refused, never scored as the truncated structure (surrounding whitespace,
+    # a trailing no-break space among it, is only stripped)
+    cut = [("\n" in s.strip() or not s.strip().isascii()) and len(s) <= 20_000 for s in smiles]
+    assert (df.loc[cut, "status"] == "unreadable_smiles").all() and sum(cut) > 300
     bad = df[df["status"] != "ok"]
     assert bad["warnings"].str.len().gt(0).all()  # every refused row says why
     assert not df["warnings"].fillna("").str.contains("Traceback|Error:").any()
