@@ -230,6 +230,11 @@ def test_enough_reference_molecules():
         ("Oc1ccncc1", 0, "lactim_oh"),
         ("Sc1ccccn1", 0, "lactim_oh"),
         ("Oc1cccnc1", 0, "phenol"),
+        # 1,8-bis(dimethylamino)naphthalene, the first proton sponge: 12.1 against 5.1 for
+        # N,N-dimethylaniline (Alder et al. 1968, from memory); a 2-naphthylamine is a plain dialkylaniline
+        ("CN(C)c1cccc2cccc(N(C)C)c12", 1, "peri_diamine_n"),
+        ("CN(C)c1cccc2cccc(N(C)C)c12", 12, "peri_diamine_n"),
+        ("CN(C)c1ccc2ccccc2c1", 1, "n_dialkyl_aniline"),
     ],
 )
 def test_site_types_of_textbook_groups(smiles, atom, site_type):
