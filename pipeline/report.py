@@ -362,6 +362,13 @@ def _curation(bundle: ModelBundle) -> str:
     rows += [[f"&nbsp;&nbsp;{_e(k)}", f"{v:,}"] for k, v in cur.get("measurements_by_kind", {}).items()]
     rows += [["replicate groups (n &gt; 1)", f"{cur.get('replicate_groups', 0):,}"],
              ["flagged conflicting replicates", f"{cur.get('flagged_conflicts', 0):,}"]]
+    # how each measurement meets its prediction in the value-free figures; none of these reads the value
+    rows += [["later constants (rank 2 or more of their kind; compared with that macro constant)",
+              f"{cur.get('later_constants_kept', 0):,}"],
+             ["drawn against their kind (compared with the step out of the drawn charge)",
+              f"{cur.get('drawn_against_kind', 0):,}"],
+             ["site named by the source's name of the titrating group (compared with that site)",
+              f"{cur.get('sites_from_groups', 0):,}"]]
     fig, (ax1, ax2) = _new_fig(10, max(2.6, 0.32 * (len(reasons) + 2)), ncols=2)
     stages = [("read", cur.get("rows_in", 0)), ("kept", cur.get("rows_kept", 0)),
               ("measurements", cur.get("measurements", 0))]

@@ -239,3 +239,13 @@ def test_cli_run_id_reads_the_run_model_and_logs_the_report(bundle, tmp_path):
     assert run.info.run_id in text and "report-test" in text
     names = [f.path for f in client.list_artifacts(run.info.run_id)]
     assert "run_report.html" in names
+
+
+def test_curation_section_says_how_records_meet_their_predictions(bundle, report_file):
+    """A reviewer sees how many records are compared with a later constant, a drawn charge's step or a site
+    named by the source, with the counts of the bundle's curation summary."""
+    section = " ".join(_section(report_file.read_text(encoding="utf-8"), "curation").split())
+    cur = bundle.curation
+    for label, key in [("later constants", "later_constants_kept"), ("drawn against their kind", "drawn_against_kind"),
+                       ("name of the titrating group", "sites_from_groups")]:
+        assert re.search(rf"{label}[^<]*</td><td[^>]*>{cur.get(key, 0):,}<", section), label
