@@ -235,6 +235,12 @@ def test_enough_reference_molecules():
         ("CN(C)c1cccc2cccc(N(C)C)c12", 1, "peri_diamine_n"),
         ("CN(C)c1cccc2cccc(N(C)C)c12", 12, "peri_diamine_n"),
         ("CN(C)c1ccc2ccccc2c1", 1, "n_dialkyl_aniline"),
+        # 1-methyl-4(1H)-pyridinimine (12.5) and 1-methyl-2(1H)-pyridinimine (12.2): the conjugate acids
+        # are aminopyridinium ions (Angyal & Angyal 1952, from memory); an N-acyl imine stays a plain imine
+        ("Cn1ccc(=N)cc1", 5, "azinylidene_imine"),
+        ("Cn1ccccc1=N", 7, "azinylidene_imine"),
+        ("CC(=O)N=c1ccccn1C", 3, "imine"),
+        ("N=C1CCCCC1", 0, "imine"),
     ],
 )
 def test_site_types_of_textbook_groups(smiles, atom, site_type):
