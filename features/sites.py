@@ -576,6 +576,22 @@ def numbering_contradicted(mol: Chem.Mol, kind: str, rank: int, value: float, ma
     return pos > 0 and not any(fits(s) for s in ranked[pos:]) and any(fits(s) for s in ranked[:pos])
 
 
+def named_site_contradicted(mol: Chem.Mol, kind: str, atom: int, value: float, margin: float = 2.0,
+                            catalog: Catalog | None = None) -> bool:
+    """Whether a value a source attaches to the site at ``atom`` cannot be that site's by the catalog's
+    ranges (more than ``margin`` outside its type's range) while another candidate of ``kind`` can:
+    indole-5-carboxylic acid's 4.1 named as its N-H's (an indole N-H is about 17) is the carboxylic
+    acid's. Either the name or the value is wrong."""
+    catalog = catalog or load_catalog()
+    candidates = [s for s in find_sites(mol, catalog) if s.kind == kind]
+
+    def fits(site: Site) -> bool:
+        return catalog.by_name[site.type].outside(value) <= margin
+
+    named = [s for s in candidates if s.atom == atom]
+    return bool(named) and not fits(named[0]) and any(fits(s) for s in candidates if s.atom != atom)
+
+
 # ----------------------------------------------------------------------------- a source's group names
 
 #: Acid sites that are oxo-acid O-H groups: a source calls them by their group (COOH, SO3H, PO3H2), so its

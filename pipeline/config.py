@@ -81,7 +81,8 @@ class CurationConfig(_Strict):
     # step out of the drawn charge (measurements: drawn_charge); false: every drawn_charge is 0
     charge_against_kind: bool = True
     # a value ranked as a later constant that only a stronger site's catalog range (widened by this many
-    # log units) can hold is rejected as numbering_conflict; null: no check
+    # log units) can hold is rejected as numbering_conflict, and one whose source-named group's site cannot
+    # hold it while another site can as group_conflict; null: no check
     numbering_range_margin: float | None = 2.0
     # a record whose source names its titrating group ("COOH", "SO2-NH-") gets the one candidate site that
     # name singles out as its site atom (acid records; measurements: site_atom)

@@ -378,7 +378,7 @@ def _rank_constants(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFra
     ranked["constant_rank"] += unlisted_stronger_acids(rows)
     drawing = drawing_charges(rows, cfg.charged_drawing_ranks, cfg.charge_against_kind)
     if cfg.group_sites:
-        rows = _name_sites_from_groups(rows, drawing["against_kind"])
+        rows = _name_sites_from_groups(rows, drawing["against_kind"], cfg.numbering_range_margin)
     drawn = drawing["titrated"]
     raised = ranked["constant_rank"] < drawn + 1
     ranked["constant_rank"] = ranked["constant_rank"].where(~raised, drawn + 1)
@@ -389,6 +389,10 @@ def _rank_constants(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFra
     contradicted = _numbering_conflicts(rows, cfg.numbering_range_margin)
     rejects = [_reject_row({**r, "smiles": r["input_smiles"]}, "numbering_conflict", _conflict_detail(r))
                for r in rows[contradicted].to_dict("records")]
+    group_conflict = rows.get("group_conflict", pd.Series(False, rows.index)).astype(bool) & ~contradicted
+    rejects += [_reject_row({**r, "smiles": r["input_smiles"]}, "group_conflict", _group_conflict_detail(r))
+                for r in rows[group_conflict].to_dict("records")]
+    contradicted |= group_conflict
     rows, ranked = rows[~contradicted], ranked[~contradicted]
     if not cfg.first_constant_only:
         return rows, rejects
@@ -398,23 +402,29 @@ def _rank_constants(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFra
     return rows[~later], rejects
 
 
-def _name_sites_from_groups(rows: pd.DataFrame, against_kind: pd.Series) -> pd.DataFrame:
+def _name_sites_from_groups(rows: pd.DataFrame, against_kind: pd.Series, margin: float | None) -> pd.DataFrame:
     """Rows that name no site atom but whose source names the titrating group, when the name singles out
     one candidate site (:func:`~pkasite.features.sites.group_site`), get that site atom and
     ``site_from_group``; the source's word, not the value, picks the site.  Rows drawn against their kind
     keep their step out of the drawn charge instead (a named site would compare the neutral molecule's
-    site value with it)."""
-    from pkasite.features.sites import group_site
+    site value with it).  A row whose value only another candidate's catalog range can hold (widened by
+    ``margin``; :func:`~pkasite.features.sites.named_site_contradicted`) is marked ``group_conflict``."""
+    from pkasite.features.sites import group_site, named_site_contradicted
     from pkasite.features.standardize import parse_smiles
 
-    rows = rows.assign(site_from_group=False)
+    rows = rows.assign(site_from_group=False, group_conflict=False)
     todo = rows["site_atom"].isna() & (against_kind == 0) & (rows["site_group"].str.strip() != "")
     for label in rows.index[todo]:
         r = rows.loc[label]
-        atom = group_site(parse_smiles(r["smiles"]), r["kind"], r["site_group"])
-        if atom is not None:
-            rows.at[label, "site_atom"] = atom
-            rows.at[label, "site_from_group"] = True
+        mol = parse_smiles(r["smiles"])
+        atom = group_site(mol, r["kind"], r["site_group"])
+        if atom is None:
+            continue
+        if margin is not None and named_site_contradicted(mol, r["kind"], atom, float(r["pka"]), margin):
+            rows.at[label, "group_conflict"] = True
+            continue
+        rows.at[label, "site_atom"] = atom
+        rows.at[label, "site_from_group"] = True
     return rows
 
 
@@ -439,6 +449,11 @@ def _conflict_detail(row: dict) -> str:
     return (f"{row['source']} ranks this {row['kind']} value {row['pka']:g} as the compound's {row['kind']} "
             f"constant {int(row['constant_rank'])}, but only a stronger site's typical range can hold it; "
             "the number or the value is wrong")
+
+
+def _group_conflict_detail(row: dict) -> str:
+    return (f"{row['source']} names the group {row['site_group']!r} for this {row['kind']} value {row['pka']:g}, "
+            "but only another site's typical range can hold it; the name or the value is wrong")
 
 
 def _later_detail(row: dict, stronger: float) -> str:

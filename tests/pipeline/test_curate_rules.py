@@ -246,3 +246,17 @@ def test_empty_input_summary_has_every_count():
     for key in ("later_constants_kept", "ranked_by_drawing", "drawn_against_kind", "sites_from_groups",
                 "rows_recovered"):
         assert res.summary[key] == 0
+
+
+def test_a_named_group_whose_site_cannot_hold_the_value_is_a_group_conflict():
+    # indole-5-carboxylic acid with its carboxylic acid's value (about 4.1) but the group named N-H: an
+    # indole N-H is far weaker (about 17, Bordwell's compilation, from memory), the catalog's pyrrole_nh
+    # range cannot hold 4.1 and the carboxylic acid's can (the compilation's record 11167)
+    rows = [{"smiles": "O=C(O)c1ccc2[nH]ccc2c1", "kind": "acid", "value_text": "4.1", "site_group": "N-H"},
+            {"smiles": "O=C(O)c1ccc2[nH]ccc2c1", "kind": "acid", "value_text": "4.1", "site_group": "COOH"}]
+    res = curate(raw(*rows), CFG)
+    assert reasons(res) == {"r1": "group_conflict"}
+    assert "'N-H'" in res.rejects.loc[0, "detail"]
+    assert res.summary["sites_from_groups"] == 1 and res.summary["accounted"]
+    off = curate(raw(*rows[:1]), CurationConfig(numbering_range_margin=None))
+    assert off.rejects.empty and off.summary["sites_from_groups"] == 1
