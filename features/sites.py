@@ -63,6 +63,10 @@ class SiteAssignmentError(SiteError):
     """An explicitly given site atom is not a site of the requested kind."""
 
 
+class RankWithoutSiteError(SiteError):
+    """A later constant's rank exceeds the molecule's number of sites of its kind: its site is not perceived."""
+
+
 @dataclass(frozen=True)
 class SiteType:
     """One catalog entry: a SMARTS pattern for an ionizable group and its typical pKa."""
@@ -502,7 +506,10 @@ def assign_site(
 
     ``rank > 1`` says the value is the molecule's ``rank``-th strongest constant of the kind (a later
     constant): it goes to the ``rank``-th distinct candidate in the same order (the weakest one when
-    there are fewer), and the value plays no part in the choice.
+    symmetry leaves fewer), and the value plays no part in the choice. A rank above the number of
+    candidate sites raises :class:`RankWithoutSiteError`: 4-pyrrolidinopyridine's dication constant
+    (-0.53) is its amino N's, which conjugation with the ring N takes out of the sites, and attached to the
+    ring N it would teach the model a 4-aminopyridine at -0.5.
     """
     if kind not in KINDS:
         raise ValueError(f"kind must be one of {KINDS}, got {kind!r}")
@@ -524,6 +531,11 @@ def assign_site(
             f"{kind} sites are: {available}"
         )
 
+    if rank > len(candidates):
+        raise RankWithoutSiteError(
+            f"{Chem.MolToSmiles(mol)} has {len(candidates)} {kind} site(s) but the value is ranked its constant "
+            f"{rank} of that kind: the site of this constant is not one the catalog perceives"
+        )
     distinct = _distinct_candidates(mol, candidates)
     source = "predicted pKa" if predicted is not None else "catalog prior"
     by_prediction = predicted is not None

@@ -13,7 +13,8 @@ import pandas as pd
 from rdkit import Chem
 
 from pkasite.features.site_features import FeatureSettings, featurize_sites
-from pkasite.features.sites import NoSiteError, SiteAssignmentError, SiteError, assign_site, find_sites, load_catalog
+from pkasite.features.sites import (NoSiteError, RankWithoutSiteError, SiteAssignmentError, SiteError, assign_site,
+                                    find_sites, load_catalog)
 from pkasite.features.standardize import quiet_rdkit
 
 SITE_COLUMNS = ["mol_id", "record_id", "smiles", "inchikey", "kind", "atom", "site_type", "prior",
@@ -111,7 +112,8 @@ def build_site_table(measurements: pd.DataFrame) -> SiteTable:
                 chosen = assign_site(mol, rec.kind, sites=sites, site_atom=site_atom, value=float(rec.pka),
                                      catalog=catalog)
         except SiteError as exc:
-            reason = {NoSiteError: "no_site_of_kind", SiteAssignmentError: "site_atom_not_a_site"}.get(
+            reason = {NoSiteError: "no_site_of_kind", SiteAssignmentError: "site_atom_not_a_site",
+                      RankWithoutSiteError: "rank_without_site"}.get(
                 type(exc), "structure_invalid")
             rejects.append({"source": rec.source, "record_id": rec.record_id, "reason": reason, "detail": str(exc),
                             "smiles": rec.smiles, "kind": rec.kind})

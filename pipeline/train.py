@@ -54,8 +54,11 @@ class Prepared:
         return self.table.sites
 
     def summary(self) -> str:
+        rejects = self.table.rejects
+        n_rank = int((rejects["reason"] == "rank_without_site").sum()) if len(rejects) else 0
         return (f"{len(self.table.molecules)} molecules, {len(self.sites)} candidate sites, "
-                f"{len(self.table.rejects)} without a site of their kind, {self.X.shape[1]} features")
+                f"{len(rejects) - n_rank} without a site of their kind, {n_rank} ranked past their sites, "
+                f"{self.X.shape[1]} features")
 
 
 def _prepare_slice(measurements: pd.DataFrame, settings: FeatureSettings, site_types: list[str]):

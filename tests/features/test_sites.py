@@ -21,6 +21,7 @@ from pkasite.features.sites import (
     Assignment,
     CatalogError,
     NoSiteError,
+    RankWithoutSiteError,
     SiteAssignmentError,
     SiteError,
     assign_site,
@@ -697,3 +698,18 @@ def test_smiles_text_that_rdkit_would_misread_is_refused(text, problem):
     if problem is not None:
         with pytest.raises(StructureError, match="position 3"):
             parse_smiles(text)
+
+
+def test_a_rank_past_the_sites_of_its_kind_has_no_site():
+    # 4-pyrrolidinopyridine's second base constant (about -0.5, its dication) belongs to the amino N, which
+    # conjugation with the ring N takes out of the sites (CRC Handbook's 4-aminopyridine chemistry, from
+    # memory); attached to the ring N it would teach a 4-aminopyridine near -0.5
+    mol = Chem.MolFromSmiles("c1cc(N2CCCC2)ccn1")
+    assert [s.type for s in find_sites(mol) if s.kind == "base"] == ["pyridine_like_n"]
+    with pytest.raises(RankWithoutSiteError, match="constant 2"):
+        assign_site(mol, "base", rank=2)
+    # resorcinol: two equivalent phenols, so a second acid constant has a site (9.3 and 11.1; CRC, from memory)
+    res = Chem.MolFromSmiles("Oc1cccc(O)c1")
+    assert assign_site(res, "acid", rank=2).type == "phenol"
+    with pytest.raises(RankWithoutSiteError):
+        assign_site(res, "acid", rank=3)

@@ -165,3 +165,19 @@ def test_other_sites_are_bounded_only_where_their_type_can_hold_the_value():
     assert sorted(s[s.mol_id == 2]["bound"]) == [-1, 0]
     # a value measured at an explicit site says nothing about the other site
     assert (s[s.mol_id == 3]["bound"] == 0).all()
+
+
+def test_site_table_rejects_a_rank_past_the_sites_of_its_kind():
+    """INVENTED rows: 4-pyrrolidinopyridine's dication constant ranked 2 has no perceived site (its amino N
+    is no base site beside the ring N); pyridine's first constant keeps its one."""
+    from pkasite.pipeline.curate import MEASUREMENT_COLUMNS
+    from pkasite.pipeline.sitetable import build_site_table
+
+    rows = [{"record_id": "t:1", "smiles": "c1cc(N2CCCC2)ccn1", "kind": "base", "pka": -0.5, "constant_rank": 2},
+            {"record_id": "t:2", "smiles": "c1ccncc1", "kind": "base", "pka": 5.2, "constant_rank": 1}]
+    m = pd.DataFrame([{c: r.get(c, None) for c in MEASUREMENT_COLUMNS} for r in rows])
+    m["site_atom"] = m["site_atom"].astype("Int64")
+    table = build_site_table(m)
+    assert table.rejects["record_id"].tolist() == ["t:1"]
+    assert table.rejects["reason"].tolist() == ["rank_without_site"]
+    assert table.molecules["record_id"].tolist() == ["t:2"]
