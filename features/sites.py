@@ -563,6 +563,11 @@ def assign_site(
     return Assignment(chosen.atom, chosen.type, confidence, reason)
 
 
+def _holds(catalog: Catalog, site: Site, value: float, margin: float) -> bool:
+    """The site's type's catalog range, widened by ``margin``, holds ``value``."""
+    return catalog.by_name[site.type].outside(value) <= margin
+
+
 def numbering_contradicted(mol: Chem.Mol, kind: str, rank: int, value: float, margin: float = 2.0,
                            catalog: Catalog | None = None) -> bool:
     """Whether a value a source numbers as the molecule's ``rank``-th constant of ``kind`` (``rank > 1``)
@@ -581,27 +586,22 @@ def numbering_contradicted(mol: Chem.Mol, kind: str, rank: int, value: float, ma
     sign = 1.0 if kind == "acid" else -1.0
     ranked = sorted(_distinct_candidates(mol, candidates), key=lambda s: (sign * s.prior, s.atom))
     pos = min(rank, len(ranked)) - 1
-
-    def fits(site: Site) -> bool:
-        return catalog.by_name[site.type].outside(value) <= margin
-
-    return pos > 0 and not any(fits(s) for s in ranked[pos:]) and any(fits(s) for s in ranked[:pos])
+    return (pos > 0 and not any(_holds(catalog, s, value, margin) for s in ranked[pos:])
+            and any(_holds(catalog, s, value, margin) for s in ranked[:pos]))
 
 
 def named_site_contradicted(mol: Chem.Mol, kind: str, atom: int, value: float, margin: float = 2.0,
-                            catalog: Catalog | None = None) -> bool:
+                            catalog: Catalog | None = None, sites: Sequence[Site] | None = None) -> bool:
     """Whether a value a source attaches to the site at ``atom`` cannot be that site's by the catalog's
     ranges (more than ``margin`` outside its type's range) while another candidate of ``kind`` can:
     indole-5-carboxylic acid's 4.1 named as its N-H's (an indole N-H is about 17) is the carboxylic
-    acid's. Either the name or the value is wrong."""
+    acid's. Either the name or the value is wrong. ``sites``: the molecule's :func:`find_sites`, when
+    the caller has them."""
     catalog = catalog or load_catalog()
-    candidates = [s for s in find_sites(mol, catalog) if s.kind == kind]
-
-    def fits(site: Site) -> bool:
-        return catalog.by_name[site.type].outside(value) <= margin
-
+    candidates = [s for s in (find_sites(mol, catalog) if sites is None else sites) if s.kind == kind]
     named = [s for s in candidates if s.atom == atom]
-    return bool(named) and not fits(named[0]) and any(fits(s) for s in candidates if s.atom != atom)
+    return (bool(named) and not _holds(catalog, named[0], value, margin)
+            and any(_holds(catalog, s, value, margin) for s in candidates if s.atom != atom))
 
 
 # ----------------------------------------------------------------------------- a source's group names
@@ -630,7 +630,8 @@ _ACID_GROUPS = {
 }
 
 
-def group_site(mol: Chem.Mol, kind: str, group: str, catalog: Catalog | None = None) -> int | None:
+def group_site(mol: Chem.Mol, kind: str, group: str, catalog: Catalog | None = None,
+               sites: Sequence[Site] | None = None) -> int | None:
     """The site a source's name of the titrating group points to: the atom of the one distinct candidate
     site of ``kind`` that the name can mean, when the molecule has several; None otherwise.
 
@@ -638,13 +639,14 @@ def group_site(mol: Chem.Mol, kind: str, group: str, catalog: Catalog | None = N
     plain OH means a hydroxyl other than an oxo-acid's. Base names in the compilations (NH+, NH2, R2NH,
     N) rarely single out one of several nitrogens and are not read. Lists ("NH, NH"), question marks and
     names that fit no candidate or several give None: the record keeps its rank and value-free site.
+    ``sites``: the molecule's :func:`find_sites`, when the caller has them.
     """
     if kind != "acid" or not isinstance(group, str):
         return None
     accepts = _ACID_GROUPS.get(re.sub(r"[^A-Z0-9]", "", group.upper()))
     if accepts is None or "," in group:
         return None
-    candidates = [s for s in find_sites(mol, catalog) if s.kind == kind]
+    candidates = [s for s in (find_sites(mol, catalog) if sites is None else sites) if s.kind == kind]
     distinct = _distinct_candidates(mol, candidates) if len(candidates) > 1 else candidates
     if len(distinct) < 2:
         return None

@@ -396,7 +396,7 @@ def _rank_constants(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFra
     rows, ranked = rows[~contradicted], ranked[~contradicted]
     if not cfg.first_constant_only:
         return rows, rejects
-    later = ~rows["site_atom"].notna() & (ranked["constant_rank"] > 1)
+    later = rows["site_atom"].isna() & (ranked["constant_rank"] > 1)
     rejects += [_reject_row({**r, "smiles": r["input_smiles"]}, "later_constant", _later_detail(r, stronger))
                 for r, stronger in zip(rows[later].to_dict("records"), ranked.loc[later, "stronger_pka"])]
     return rows[~later], rejects
@@ -409,7 +409,7 @@ def _name_sites_from_groups(rows: pd.DataFrame, against_kind: pd.Series, margin:
     keep their step out of the drawn charge instead (a named site would compare the neutral molecule's
     site value with it).  A row whose value only another candidate's catalog range can hold (widened by
     ``margin``; :func:`~pkasite.features.sites.named_site_contradicted`) is marked ``group_conflict``."""
-    from pkasite.features.sites import group_site, named_site_contradicted
+    from pkasite.features.sites import find_sites, group_site, named_site_contradicted
     from pkasite.features.standardize import parse_smiles
 
     rows = rows.assign(site_from_group=False, group_conflict=False)
@@ -417,10 +417,12 @@ def _name_sites_from_groups(rows: pd.DataFrame, against_kind: pd.Series, margin:
     for label in rows.index[todo]:
         r = rows.loc[label]
         mol = parse_smiles(r["smiles"])
-        atom = group_site(mol, r["kind"], r["site_group"])
+        sites = find_sites(mol)
+        atom = group_site(mol, r["kind"], r["site_group"], sites=sites)
         if atom is None:
             continue
-        if margin is not None and named_site_contradicted(mol, r["kind"], atom, float(r["pka"]), margin):
+        if margin is not None and named_site_contradicted(mol, r["kind"], atom, float(r["pka"]), margin,
+                                                          sites=sites):
             rows.at[label, "group_conflict"] = True
             continue
         rows.at[label, "site_atom"] = atom
