@@ -28,6 +28,7 @@ from rdkit.Chem import rdMolDescriptors, rdPartialCharges
 
 from .fingerprints import MAX_RADIUS, mol_fingerprint_counts, site_environment_ids
 from .graph import atoms_of, bonds_of
+from .delocalization import DL_NAMES, Conjugation, delocalization_row
 from .hammett import HAM_NAMES, hammett_row
 from .sites import KINDS
 
@@ -63,6 +64,8 @@ class FeatureSettings:
     hammett_kinds add the ``ham_`` group (when not empty): sums of Hammett substituent constants
                   (sigma_m, sigma_p) on the six-membered aromatic ring the site sits in or on
                   (:mod:`.hammett`), filled for sites of these kinds and NaN for the others
+    delocalization add the ``dl_`` group: the atoms that carry the site's charge in its ionized form and
+                  those its neutral lone pair spreads to, by resonance (:mod:`.delocalization`)
     """
 
     radii: tuple[int, ...] = (1, 2, 3)
@@ -72,6 +75,7 @@ class FeatureSettings:
     use_counts: bool = True
     type_prior: bool = False   # False keeps the column layout of bundles written before it existed
     hammett_kinds: tuple[str, ...] = ()  # likewise
+    delocalization: bool = False         # likewise
 
     def __post_init__(self) -> None:
         radii = self.radii
@@ -103,6 +107,9 @@ class FeatureSettings:
         if not isinstance(self.type_prior, (bool, np.bool_)):
             raise ValueError(f"type_prior must be true or false, got {self.type_prior!r}")
         object.__setattr__(self, "type_prior", bool(self.type_prior))
+        if not isinstance(self.delocalization, (bool, np.bool_)):
+            raise ValueError(f"delocalization must be true or false, got {self.delocalization!r}")
+        object.__setattr__(self, "delocalization", bool(self.delocalization))
         hk = self.hammett_kinds
         if isinstance(hk, str) or not all(k in KINDS for k in hk) or len(set(hk)) != len(tuple(hk)):
             raise ValueError(f"hammett_kinds must list distinct kinds from {KINDS}, got {hk!r}")
@@ -119,6 +126,7 @@ class FeatureSettings:
             "use_counts": self.use_counts,
             "type_prior": self.type_prior,
             "hammett_kinds": list(self.hammett_kinds),
+            "delocalization": self.delocalization,
         }
 
     @classmethod
@@ -131,7 +139,8 @@ class FeatureSettings:
                 f"feature settings were written for feature version {version}, this code builds "
                 f"version {FEATURES_VERSION}; re-featurize and retrain the model"
             )
-        allowed = {"radii", "n_bits", "mol_fp_bits", "mol_fp_radius", "use_counts", "type_prior", "hammett_kinds"}
+        allowed = {"radii", "n_bits", "mol_fp_bits", "mol_fp_radius", "use_counts", "type_prior", "hammett_kinds",
+                   "delocalization"}
         unknown = sorted(set(data) - allowed)
         if unknown:
             raise ValueError(f"unknown feature setting(s) {unknown}; allowed keys: {sorted(allowed)}")
@@ -197,6 +206,7 @@ class _Layout:
     mol: int  # descriptors followed by the fingerprint
     prior: int = -1  # the type_prior column (-1: not built)
     ham: int = -1    # the first ham_ column (-1: not built)
+    dl: int = -1     # the first dl_ column (-1: not built)
 
     @property
     def n(self) -> int:
@@ -243,11 +253,14 @@ def _layout(settings: FeatureSettings, site_types: tuple[str, ...]) -> _Layout:
     ham = len(names) if settings.hammett_kinds else -1
     if settings.hammett_kinds:
         names += HAM_NAMES
+    dl = len(names) if settings.delocalization else -1
+    if settings.delocalization:
+        names += DL_NAMES
     mol = len(names)
     names += MOL_DESC_NAMES
     names += [f"mol_fp_{b}" for b in range(settings.mol_fp_bits)]
     return _Layout(tuple(names), {t: typ + i for i, t in enumerate(types)},
-                   env, typ, kind, ctx, res, ind, chg, hb, mol, prior, ham)
+                   env, typ, kind, ctx, res, ind, chg, hb, mol, prior, ham, dl)
 
 
 @lru_cache(maxsize=1)
@@ -439,6 +452,7 @@ class _MolData:
         self.env = (
             site_environment_ids(mol, roots, max(settings.radii)) if settings.radii else {}
         )
+        self.conjugation = Conjugation(mol, zl) if settings.delocalization else None
 
     # ----------------------------------------------------------------- per-site groups
 
@@ -642,6 +656,8 @@ def featurize_sites(
             if layout.ham >= 0:
                 x[layout.ham:layout.ham + len(HAM_NAMES)] = (hammett_row(md, s) if kind in settings.hammett_kinds
                                                              else np.nan)
+            if layout.dl >= 0:
+                x[layout.dl:layout.dl + len(DL_NAMES)] = delocalization_row(md, s, kind)
     if not settings.use_counts and settings.radii:
         block = X[:, layout.env:layout.env + len(settings.radii) * nb]
         np.minimum(block, 1.0, out=block)

@@ -111,6 +111,8 @@ class FeaturesConfig(_Strict):
     type_prior: bool = True    # a column with the site catalog's typical pKa of the site's type
     # sums of Hammett sigma constants on the site's aromatic ring, for sites of these kinds (FEATURES.md)
     hammett_kinds: list[Literal["acid", "base"]] = Field(default_factory=list)
+    # the atoms that take up the site's charge and its lone pair by resonance (FEATURES.md)
+    delocalization: bool = True
 
 
 class _ModelSettings(_Strict):

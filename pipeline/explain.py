@@ -80,6 +80,10 @@ def _group_key(name: str) -> str:
         return "hb"
     if name.startswith("ham_"):
         return "ham"
+    if name.startswith("dl_ion_"):
+        return "dl_ion"
+    if name.startswith("dl_lp_"):
+        return "dl_lp"
     return "other"
 
 
@@ -206,6 +210,20 @@ def _phrase(key: str, v: dict[str, float], site: str, site_type: str) -> str:
         if np.isnan(v.get("ham_link", np.nan)):  # no six-membered aromatic ring within 3 bonds
             return "no six-membered aromatic ring within 3 bonds"
         return f"ring substituents, Hammett sigma (meta + para) {v.get('ham_sigma_mp', 0.0):+.2f}"
+    if key in ("dl_ion", "dl_lp"):
+        walk = key[3:]
+        parts = [(v.get(f"dl_{walk}_{el}", 0.0), word) for el, word in
+                 (("o", "O"), ("n", "N"), ("c", "C"), ("x", "other"))]
+        total = sum(n for n, _ in parts)
+        which = ", ".join(f"{_count(n)} {word}" for n, word in parts if n > 0)
+        if walk == "ion":
+            charge = "negative" if site.endswith("-H") else "positive"
+            if not total:
+                return f"the {charge} charge of the ionized site stays on it"
+            return f"the {charge} charge of the ionized site spreads by resonance to {which}"
+        if not total:
+            return "the site's lone pair is not shared by resonance"
+        return f"the site's lone pair is shared by resonance with {which}"
     return "other features"
 
 

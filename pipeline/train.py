@@ -35,7 +35,7 @@ def feature_settings(cfg: RunConfig) -> FeatureSettings:
     f = cfg.features
     return FeatureSettings(radii=tuple(f.radii), n_bits=f.n_bits, mol_fp_bits=f.mol_fp_bits,
                            mol_fp_radius=f.mol_fp_radius, use_counts=f.use_counts, type_prior=f.type_prior,
-                           hammett_kinds=tuple(f.hammett_kinds))
+                           hammett_kinds=tuple(f.hammett_kinds), delocalization=f.delocalization)
 
 
 @dataclass

@@ -145,3 +145,19 @@ def test_explanations_pair_with_their_sites(bundle):
     types = [next(p for k, p, _ in e.groups if k == "type") for e in full]
     assert types == ["site type carboxylic_acid", "site type aliphatic_amine_tertiary"]
     assert re.search(r"the basic N", " ".join(p for _, p, _ in full[1].groups))
+
+
+def test_resonance_walk_phrases_follow_the_structure(bundle):
+    """The guanidinium ion shares its charge with two more N and its carbon (guanidine pKaH 13.6, CRC
+    Handbook, from memory); an aniline N's lone pair is shared with the ring (aniline pKaH 4.6 against
+    cyclohexylamine 10.6, same source), an amine's is not."""
+    guan = explain_sites_full(bundle, [one_site("NC(N)=N", "guanidine")])[0]
+    phrases = {key: phrase for key, phrase, _ in guan.groups}
+    assert phrases["dl_ion"] == "the positive charge of the ionized site spreads by resonance to two N, one C"
+    aniline = explain_sites_full(bundle, [one_site("Nc1ccccc1", "aniline")])[0]
+    assert {k: p for k, p, _ in aniline.groups}["dl_lp"] == "the site's lone pair is shared by resonance with three C"
+    amine = explain_sites_full(bundle, [one_site("NC1CCCCC1", "aliphatic_amine_primary")])[0]
+    assert {k: p for k, p, _ in amine.groups}["dl_lp"] == "the site's lone pair is not shared by resonance"
+    acetate = explain_sites_full(bundle, [one_site("CC(=O)O", "carboxylic_acid")])[0]
+    assert {k: p for k, p, _ in acetate.groups}["dl_ion"] == \
+        "the negative charge of the ionized site spreads by resonance to one O"

@@ -23,7 +23,10 @@ MOLECULES = {
     "citric acid": "OC(=O)CC(O)(CC(=O)O)C(=O)O",
     "4-aminopyridine": "Nc1ccncc1",
     "2-hydroxypyridine": "Oc1ccccn1",
-    "histamine": "NCCc1cnc[nH]1",
+    # drawn as its major tautomer in water, N-H on the ring N away from the side chain (N-tau-H; from
+    # memory, NMR studies of histamine tautomerism); predictions depend on the drawn azole tautomer
+    # (README, known limits): the minor one gives the ring N about 1 unit more basic
+    "histamine": "NCCc1c[nH]cn1",
     "metformin": "CN(C)C(=N)NC(=N)N",
     "thioglycolic acid": "OC(=O)CS",
 }
@@ -113,8 +116,8 @@ def test_2_hydroxypyridine_is_neutral_between_its_constants(predicted):
 
 
 def test_histamine_two_base_constants(predicted):
-    # Known miss, not asserted: the imidazole N-H (about 14.4) is predicted near 11 and listed as a third
-    # constant; only the two base constants are checked here.
+    # only the two base constants are checked here (the imidazole N-H, about 14.4, is outside the window
+    # or listed as a third constant depending on the model)
     m = predicted[0].loc["histamine"]
     bases = sorted([x for x in _macro(m) if x < 10.5], reverse=True)
     assert bases[:2] == pytest.approx([9.75, 6.04], abs=0.8)
