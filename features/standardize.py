@@ -66,6 +66,54 @@ LACTIM_WARNING = ("drawn as a hydroxy/mercapto tautomer of an N-heterocycle (in 
                   "often predominates); sites and values follow the drawing, so compare with the other form")
 
 
+def _moved_ring_h(mol: Chem.Mol, donor: int, acceptor: int) -> Chem.Mol | None:
+    """``mol`` with the H of ring N ``donor`` moved to ring N ``acceptor`` (None if that cannot be drawn)."""
+    rw = Chem.RWMol(mol)
+    for idx, h in ((donor, 0), (acceptor, 1)):
+        a = rw.GetAtomWithIdx(idx)
+        a.SetNoImplicit(True)
+        a.SetNumExplicitHs(h)
+    try:
+        Chem.SanitizeMol(rw)
+    except Exception:  # noqa: BLE001 - no Kekule structure for that tautomer: nothing to compare
+        return None
+    return rw.GetMol()
+
+
+def azole_tautomer_drawing(mol: Chem.Mol) -> bool:
+    """True when ``mol`` has an aromatic five-membered ring with an N-H and a pyridine-type N whose
+    other N-H tautomer is a different structure (a 4(5)-substituted imidazole such as histamine, a
+    3(5)-substituted pyrazole, a 7H/9H purine); imidazole itself and benzimidazole, whose tautomers are
+    the same structure, do not count.  Both tautomers are present in water in proportions the drawing
+    does not tell, and the sites found, and their values, follow the drawing."""
+    ri = mol.GetRingInfo()
+    canon = None
+    for ring in ri.AtomRings():
+        if len(ring) != 5:
+            continue
+        atoms = [mol.GetAtomWithIdx(i) for i in ring]
+        if not all(a.GetIsAromatic() for a in atoms):
+            continue
+        donors = [a.GetIdx() for a in atoms if a.GetAtomicNum() == 7 and a.GetTotalNumHs() == 1
+                  and a.GetDegree() == 2 and a.GetFormalCharge() == 0]
+        acceptors = [a.GetIdx() for a in atoms if a.GetAtomicNum() == 7 and a.GetTotalNumHs() == 0
+                     and a.GetDegree() == 2 and a.GetFormalCharge() == 0]
+        for d in donors:
+            for acc in acceptors:
+                other = _moved_ring_h(mol, d, acc)
+                if other is None:
+                    continue
+                if canon is None:
+                    canon = Chem.MolToSmiles(mol)
+                if Chem.MolToSmiles(other) != canon:
+                    return True
+    return False
+
+
+AZOLE_TAUTOMER_WARNING = ("drawn as one N-H tautomer of an azole ring whose other tautomer is a different "
+                          "structure; sites and values follow the drawing, so compare with the other tautomer")
+
+
 def quiet_rdkit() -> None:
     """Silence RDKit's per-molecule warnings; callers report problems themselves."""
     RDLogger.DisableLog("rdApp.*")
