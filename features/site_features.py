@@ -28,7 +28,7 @@ from rdkit.Chem import rdMolDescriptors, rdPartialCharges
 
 from .fingerprints import MAX_RADIUS, mol_fingerprint_counts, site_environment_ids
 from .graph import atoms_of, bonds_of
-from .delocalization import DL_NAMES, Conjugation, delocalization_row
+from .delocalization import DL_NAMES, Conjugation, add_bond, delocalization_row
 from .hammett import HAM_NAMES, hammett_row
 from .sites import KINDS
 
@@ -306,6 +306,11 @@ class _MolData:
         dbl_n: list[list[int]] = [[] for _ in range(n)]
         dbl_c: list[list[int]] = [[] for _ in range(n)]
         triple_n = [False] * n
+        walks = settings.delocalization
+        if walks:
+            c_single: list[list[int]] = [[] for _ in range(n)]
+            c_double: list[list[int]] = [[] for _ in range(n)]
+            c_arom: list[tuple[int, int]] = []
         for b in bonds_of(mol):
             i, j = b.GetBeginAtomIdx(), b.GetEndAtomIdx()
             zi, zj = zl[i], zl[j]
@@ -318,6 +323,8 @@ class _MolData:
             else:
                 nbrs[j].append(i)
             bt = b.GetBondType()
+            if walks:
+                add_bond(c_single, c_double, c_arom, i, j, bt, zl)
             if bt == Chem.BondType.DOUBLE:
                 for a, o, zo in ((i, j, zj), (j, i, zi)):
                     if zo == 8:
@@ -452,7 +459,8 @@ class _MolData:
         self.env = (
             site_environment_ids(mol, roots, max(settings.radii)) if settings.radii else {}
         )
-        self.conjugation = Conjugation(mol, zl) if settings.delocalization else None
+        self.conjugation = (Conjugation(zl, self.aromatic, fcl, self.nhs, c_single, c_double, c_arom) if walks
+                            else None)
 
     # ----------------------------------------------------------------- per-site groups
 

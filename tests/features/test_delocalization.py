@@ -12,7 +12,7 @@ import random
 import pytest
 from rdkit import Chem
 
-from pkasite.features.delocalization import DL_NAMES
+from pkasite.features.delocalization import DL_NAMES, Conjugation
 from pkasite.features.site_features import FeatureSettings, describe_site, featurize_sites, site_feature_names
 
 ON = FeatureSettings(radii=(1,), n_bits=8, mol_fp_bits=0, delocalization=True)
@@ -118,3 +118,18 @@ def test_featurize_fills_the_block_for_every_site_of_a_molecule():
     # the amino N's lone pair reaches the carboxyl O through the ring; the acid's anion spreads to its O
     assert X[0, cols[DL_NAMES.index("dl_lp_o")]] == 1
     assert X[1, cols[DL_NAMES.index("dl_ion_o")]] == 1
+
+
+@pytest.mark.parametrize("smiles", [
+    "O=c1cccc[nH]1", "c1cc[n-]c1", "c1nn[n-]n1", "C[n+]1ccccc1", "c1cc[o+]cc1", "OC(=O)[c+]1cccccc1",
+    "c1ccc2[nH]cnc2c1", "Cn1cncc1", "c1ccsc1", "[O-][n+]1ccccc1", "Cc1cc(O)nn1-c1ccccc1",
+    "Nc1nc(O)c2ncn(C3CC(O)C(CO)O3)c2n1", "O=c1[nH]c(=O)c2[nH]cnc2[nH]1", "c1ccc2c(c1)ccc1ccccc12",
+])
+def test_pi_partners_are_the_atoms_with_a_kekule_double_bond(smiles):
+    # reference: RDKit's own Kekule structure of the molecule
+    mol = Chem.MolFromSmiles(smiles)
+    kek = Chem.Mol(mol)
+    Chem.Kekulize(kek, clearAromaticFlags=False)
+    expected = [any(b.GetBondType() in (Chem.BondType.DOUBLE, Chem.BondType.TRIPLE) for b in a.GetBonds())
+                for a in kek.GetAtoms()]
+    assert Conjugation.of(mol).pi == expected
