@@ -4,8 +4,12 @@ The goal is one canonical structure per measured species without moving the
 ionizable hydrogen: keep the largest organic fragment (drop counter-ions and
 solvent), normalize functional-group drawings (nitro, N-oxides, ...), and
 neutralize charges only by adding or removing protons on charged acids and
-bases.  Tautomers are left as drawn on purpose: canonicalizing them could move
-the proton whose loss was measured.
+bases.  Tautomers are left as drawn on purpose (canonicalizing them could move
+the proton whose loss was measured), with one exception: the N-H of an azole
+ring (imidazole, pyrazole, triazole, tetrazole, the five-membered ring of a
+purine) goes to one fixed ring N, so that the two drawings of a 4(5)-substituted
+imidazole are one structure; both tautomers share the cation and the anion, so
+no measured proton is lost by it.
 """
 from __future__ import annotations
 
@@ -67,7 +71,8 @@ LACTIM_WARNING = ("drawn as a hydroxy/mercapto tautomer of an N-heterocycle (in 
 
 
 def _moved_ring_h(mol: Chem.Mol, donor: int, acceptor: int) -> Chem.Mol | None:
-    """``mol`` with the H of ring N ``donor`` moved to ring N ``acceptor`` (None if that cannot be drawn)."""
+    """``mol`` with the H of ring N ``donor`` moved to ring N ``acceptor`` (None if that cannot be drawn).
+    Atom order is kept."""
     rw = Chem.RWMol(mol)
     for idx, h in ((donor, 0), (acceptor, 1)):
         a = rw.GetAtomWithIdx(idx)
@@ -75,43 +80,71 @@ def _moved_ring_h(mol: Chem.Mol, donor: int, acceptor: int) -> Chem.Mol | None:
         a.SetNumExplicitHs(h)
     try:
         Chem.SanitizeMol(rw)
-    except Exception:  # noqa: BLE001 - no Kekule structure for that tautomer: nothing to compare
+    except Exception:  # noqa: BLE001 - no Kekule structure for that tautomer: not a candidate
         return None
     return rw.GetMol()
+
+
+def _azole_rings(mol: Chem.Mol) -> list[tuple[list[int], list[int]]]:
+    """Per aromatic five-membered ring with one ring N-H and a pyridine-type ring N: (N-H atoms, other N)."""
+    out = []
+    for ring in mol.GetRingInfo().AtomRings():
+        if len(ring) != 5:
+            continue
+        atoms = [mol.GetAtomWithIdx(i) for i in ring]
+        if not all(a.GetIsAromatic() for a in atoms):
+            continue
+        ring_n = [a for a in atoms if a.GetAtomicNum() == 7 and a.GetDegree() == 2 and a.GetFormalCharge() == 0]
+        donors = [a.GetIdx() for a in ring_n if a.GetTotalNumHs() == 1]
+        acceptors = [a.GetIdx() for a in ring_n if a.GetTotalNumHs() == 0]
+        if len(donors) == 1 and acceptors:
+            out.append((donors, acceptors))
+    return out
+
+
+_MAX_AZOLE_TAUTOMERS = 64
+
+
+def azole_tautomers(mol: Chem.Mol) -> list[Chem.Mol]:
+    """The N-H tautomers of ``mol``'s azole rings (each ring's H on each of its ring N in turn, rings
+    combined, at most 64), ``mol`` itself first; atom order is kept."""
+    found = [mol]
+    for donors, acceptors in _azole_rings(mol):
+        grown = []
+        for m in found:
+            grown.append(m)
+            for acc in acceptors:
+                other = _moved_ring_h(m, donors[0], acc)
+                if other is not None:
+                    grown.append(other)
+        found = grown[:_MAX_AZOLE_TAUTOMERS]
+    return found
 
 
 def azole_tautomer_drawing(mol: Chem.Mol) -> bool:
     """True when ``mol`` has an aromatic five-membered ring with an N-H and a pyridine-type N whose
     other N-H tautomer is a different structure (a 4(5)-substituted imidazole such as histamine, a
     3(5)-substituted pyrazole, a 7H/9H purine); imidazole itself and benzimidazole, whose tautomers are
-    the same structure, do not count.  Both tautomers are present in water in proportions the drawing
-    does not tell, and the sites found, and their values, follow the drawing."""
-    ri = mol.GetRingInfo()
-    canon = None
-    for ring in ri.AtomRings():
-        if len(ring) != 5:
-            continue
-        atoms = [mol.GetAtomWithIdx(i) for i in ring]
-        if not all(a.GetIsAromatic() for a in atoms):
-            continue
-        donors = [a.GetIdx() for a in atoms if a.GetAtomicNum() == 7 and a.GetTotalNumHs() == 1
-                  and a.GetDegree() == 2 and a.GetFormalCharge() == 0]
-        acceptors = [a.GetIdx() for a in atoms if a.GetAtomicNum() == 7 and a.GetTotalNumHs() == 0
-                     and a.GetDegree() == 2 and a.GetFormalCharge() == 0]
-        for d in donors:
-            for acc in acceptors:
-                other = _moved_ring_h(mol, d, acc)
-                if other is None:
-                    continue
-                if canon is None:
-                    canon = Chem.MolToSmiles(mol)
-                if Chem.MolToSmiles(other) != canon:
-                    return True
-    return False
+    the same structure, do not count.  Both tautomers are present in water in proportions no drawing
+    tells, and predictions are for the one :func:`canonical_azole_tautomer` picks."""
+    tautomers = azole_tautomers(mol)
+    return len({Chem.MolToSmiles(m) for m in tautomers}) > 1
 
 
-AZOLE_TAUTOMER_WARNING = ("drawn as one N-H tautomer of an azole ring whose other tautomer is a different "
-                          "structure; sites and values follow the drawing, so compare with the other tautomer")
+def canonical_azole_tautomer(mol: Chem.Mol) -> Chem.Mol:
+    """One fixed N-H tautomer for the azole rings of ``mol``, whichever was drawn: the one whose canonical
+    SMILES sorts first (a rule with no chemistry in it, only consistency: training and prediction see
+    every compound in one drawing).  Atom order is kept; other tautomers (lactam/lactim, keto/enol) are
+    left as drawn."""
+    tautomers = azole_tautomers(mol)
+    if len(tautomers) == 1:
+        return mol
+    return min(tautomers, key=Chem.MolToSmiles)
+
+
+AZOLE_TAUTOMER_WARNING = ("an azole ring whose N-H tautomers are different structures: predicted as one of "
+                          "them chosen by a fixed rule, the same whichever is drawn, which need not be the "
+                          "major one in water")
 
 
 def quiet_rdkit() -> None:
@@ -158,8 +191,13 @@ def parent_fragment(mol: Chem.Mol) -> Chem.Mol:
     return _tools()[0].choose(mol)
 
 
-def standardize_mol(mol: Chem.Mol, site_atom: int | None = None, with_inchikey: bool = True) -> Standardized:
+def standardize_mol(mol: Chem.Mol, site_atom: int | None = None, with_inchikey: bool = True,
+                    canonical_azoles: bool = True) -> Standardized:
     """Standardize ``mol``; ``site_atom`` (index in ``mol``) is carried through.
+
+    ``canonical_azoles``: redraw the N-H of azole rings as :func:`canonical_azole_tautomer` does, so that
+    every drawing of such a compound gives one structure; skipped when ``site_atom`` is given (moving the
+    H would move the named site).
 
     ``with_inchikey=False`` skips the InChIKey (``inchikey`` is then empty): prediction needs no identity.
     """
@@ -178,6 +216,8 @@ def standardize_mol(mol: Chem.Mol, site_atom: int | None = None, with_inchikey: 
         raise StructureError(f"standardization failed: {exc}") from exc
     if not any(a.GetAtomicNum() == 6 for a in atoms_of(out)):
         raise StructureError("no carbon atom: not an organic structure")
+    if site_atom is None and canonical_azoles:
+        out = canonical_azole_tautomer(out)
     smiles = Chem.MolToSmiles(out)
     order = list(out.GetProp("_smilesAtomOutputOrder").strip("[]").rstrip(",").split(","))
     order = [int(i) for i in order if i != ""]

@@ -117,18 +117,23 @@ def test_hydroxy_drawings_of_oxo_heterocycles_are_flagged(bundle):
     assert (mols["status"] == "ok").all()
 
 
-def test_azole_nh_tautomers_that_differ_are_flagged(bundle):
+def test_azole_nh_tautomers_that_differ_are_flagged_and_predicted_alike(bundle):
     """A 4(5)-substituted imidazole (histamine), a 3(5)-substituted pyrazole and a 7H/9H purine exist in
     water as a mixture of their two N-H tautomers (common practice; histamine mostly N-tau-H, from
-    memory), which the drawing does not tell apart, and the prediction follows the drawn one.  Imidazole,
-    pyrazole and benzimidazole, whose two tautomers are the same structure, and N-alkyl azoles are not
-    flagged."""
-    flagged = ["NCCc1c[nH]cn1", "NCCc1cnc[nH]1", "Cc1cc[nH]n1", "Nc1ncnc2[nH]cnc12", "Cc1nn[nH]n1"]
+    memory), which no drawing tells apart: both drawings are predicted as one fixed tautomer, with a
+    warning.  Imidazole, pyrazole and benzimidazole, whose two tautomers are the same structure, and
+    N-alkyl azoles are not flagged."""
+    flagged = ["NCCc1c[nH]cn1", "NCCc1cnc[nH]1", "Cc1cc[nH]n1", "Cc1n[nH]cc1", "Nc1ncnc2[nH]cnc12",
+               "Nc1ncnc2nc[nH]c12", "Cc1nn[nH]n1"]
     plain = ["c1c[nH]cn1", "c1cc[nH]n1", "c1ccc2[nH]cnc2c1", "Cn1ccnc1", "CCN"]
-    mols, _ = predict(bundle, flagged + plain)
-    warned = mols["warnings"].fillna("").str.contains("N-H tautomer of an azole", regex=False).tolist()
+    mols, sites = predict(bundle, flagged + plain)
+    warned = mols["warnings"].fillna("").str.contains("azole ring whose N-H tautomers", regex=False).tolist()
     assert warned == [True] * len(flagged) + [False] * len(plain)
     assert (mols["status"] == "ok").all()
+    for a, b in (("m0", "m1"), ("m2", "m3"), ("m4", "m5")):  # the two drawings of one compound
+        assert mols.loc[a, "macro_pkas"] == mols.loc[b, "macro_pkas"]
+        assert mols.loc[a, "charge_at_ph"] == mols.loc[b, "charge_at_ph"]
+        assert sorted(sites[sites["id"] == a]["pka"]) == sorted(sites[sites["id"] == b]["pka"])
 
 
 def test_charge_state_and_species(bundle):
