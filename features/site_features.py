@@ -26,9 +26,9 @@ import numpy as np
 from rdkit import Chem
 from rdkit.Chem import rdMolDescriptors, rdPartialCharges
 
+from .delocalization import DL_NAMES, Conjugation, add_bond, delocalization_row
 from .fingerprints import MAX_RADIUS, mol_fingerprint_counts, site_environment_ids
 from .graph import atoms_of, bonds_of
-from .delocalization import DL_NAMES, Conjugation, add_bond, delocalization_row
 from .hammett import HAM_NAMES, hammett_row
 from .sites import KINDS
 

@@ -191,13 +191,12 @@ def parent_fragment(mol: Chem.Mol) -> Chem.Mol:
     return _tools()[0].choose(mol)
 
 
-def standardize_mol(mol: Chem.Mol, site_atom: int | None = None, with_inchikey: bool = True,
-                    canonical_azoles: bool = True) -> Standardized:
+def standardize_mol(mol: Chem.Mol, site_atom: int | None = None, with_inchikey: bool = True) -> Standardized:
     """Standardize ``mol``; ``site_atom`` (index in ``mol``) is carried through.
 
-    ``canonical_azoles``: redraw the N-H of azole rings as :func:`canonical_azole_tautomer` does, so that
-    every drawing of such a compound gives one structure; skipped when ``site_atom`` is given (moving the
-    H would move the named site).
+    The N-H of azole rings is redrawn as :func:`canonical_azole_tautomer` does, so that every drawing of
+    such a compound gives one structure, except when ``site_atom`` is given (moving the H would move the
+    named site).
 
     ``with_inchikey=False`` skips the InChIKey (``inchikey`` is then empty): prediction needs no identity.
     """
@@ -216,7 +215,7 @@ def standardize_mol(mol: Chem.Mol, site_atom: int | None = None, with_inchikey: 
         raise StructureError(f"standardization failed: {exc}") from exc
     if not any(a.GetAtomicNum() == 6 for a in atoms_of(out)):
         raise StructureError("no carbon atom: not an organic structure")
-    if site_atom is None and canonical_azoles:
+    if site_atom is None:
         out = canonical_azole_tautomer(out)
     smiles = Chem.MolToSmiles(out)
     order = list(out.GetProp("_smilesAtomOutputOrder").strip("[]").rstrip(",").split(","))
