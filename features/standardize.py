@@ -35,6 +35,7 @@ class Standardized:
     inchikey: str
     site_atom: int | None  # index of the given site atom in ``smiles`` (None if not given)
     original_atoms: tuple[int, ...] = ()  # for each atom of ``mol``, its index in the input (-1: added)
+    azole_tautomers_differ: bool = False  # an azole ring's N-H tautomers are different structures (redrawn)
 
 
 @lru_cache(maxsize=1)
@@ -121,14 +122,23 @@ def azole_tautomers(mol: Chem.Mol) -> list[Chem.Mol]:
     return found
 
 
+def _azole_choice(mol: Chem.Mol) -> tuple[Chem.Mol, bool]:
+    """(the fixed azole N-H tautomer of ``mol``, whether its tautomers are different structures)."""
+    tautomers = azole_tautomers(mol)
+    if len(tautomers) == 1:
+        return mol, False
+    keyed = [(Chem.MolToSmiles(m), k) for k, m in enumerate(tautomers)]
+    first = min(keyed)  # ties keep the earliest, the drawn one first
+    return tautomers[first[1]], len({key for key, _ in keyed}) > 1
+
+
 def azole_tautomer_drawing(mol: Chem.Mol) -> bool:
     """True when ``mol`` has an aromatic five-membered ring with an N-H and a pyridine-type N whose
     other N-H tautomer is a different structure (a 4(5)-substituted imidazole such as histamine, a
     3(5)-substituted pyrazole, a 7H/9H purine); imidazole itself and benzimidazole, whose tautomers are
     the same structure, do not count.  Both tautomers are present in water in proportions no drawing
     tells, and predictions are for the one :func:`canonical_azole_tautomer` picks."""
-    tautomers = azole_tautomers(mol)
-    return len({Chem.MolToSmiles(m) for m in tautomers}) > 1
+    return _azole_choice(mol)[1]
 
 
 def canonical_azole_tautomer(mol: Chem.Mol) -> Chem.Mol:
@@ -136,10 +146,7 @@ def canonical_azole_tautomer(mol: Chem.Mol) -> Chem.Mol:
     SMILES sorts first (a rule with no chemistry in it, only consistency: training and prediction see
     every compound in one drawing).  Atom order is kept; other tautomers (lactam/lactim, keto/enol) are
     left as drawn."""
-    tautomers = azole_tautomers(mol)
-    if len(tautomers) == 1:
-        return mol
-    return min(tautomers, key=Chem.MolToSmiles)
+    return _azole_choice(mol)[0]
 
 
 AZOLE_TAUTOMER_WARNING = ("an azole ring whose N-H tautomers are different structures: predicted as one of "
@@ -215,8 +222,9 @@ def standardize_mol(mol: Chem.Mol, site_atom: int | None = None, with_inchikey: 
         raise StructureError(f"standardization failed: {exc}") from exc
     if not any(a.GetAtomicNum() == 6 for a in atoms_of(out)):
         raise StructureError("no carbon atom: not an organic structure")
+    differ = False
     if site_atom is None:
-        out = canonical_azole_tautomer(out)
+        out, differ = _azole_choice(out)
     smiles = Chem.MolToSmiles(out)
     order = list(out.GetProp("_smilesAtomOutputOrder").strip("[]").rstrip(",").split(","))
     order = [int(i) for i in order if i != ""]
@@ -233,7 +241,7 @@ def standardize_mol(mol: Chem.Mol, site_atom: int | None = None, with_inchikey: 
     inchikey = Chem.MolToInchiKey(final) if with_inchikey else ""
     if with_inchikey and not inchikey:
         raise StructureError("no InChIKey for the standardized structure")
-    return Standardized(final, smiles, inchikey, new_site, original)
+    return Standardized(final, smiles, inchikey, new_site, original, differ)
 
 
 def standardize_smiles(smiles: str, site_atom: int | None = None) -> Standardized:

@@ -24,9 +24,8 @@ from pkasite.features.graph import atoms_of
 from pkasite.features.site_features import featurize_sites
 from pkasite.features.site_pairs import lactim_pairs
 from pkasite.features.sites import KINDS, find_sites, load_catalog
-from pkasite.features.standardize import (AZOLE_TAUTOMER_WARNING, LACTIM_WARNING, StructureError,
-                                          azole_tautomer_drawing, lactim_drawing, quiet_rdkit, smiles_text_problem,
-                                          standardize_mol)
+from pkasite.features.standardize import (AZOLE_TAUTOMER_WARNING, LACTIM_WARNING, StructureError, lactim_drawing,
+                                          quiet_rdkit, smiles_text_problem, standardize_mol)
 from pkasite.models.domain import similarity_bin, tanimoto_max
 from pkasite.models.microstates import MAX_EXACT_SITES, Microstates, default_interaction_model, site_holds
 from pkasite.models.prior_blend import blend
@@ -182,7 +181,7 @@ def prepare_input(smiles, fmt: str = "smiles") -> PreparedInput:
         return PreparedInput("unsupported_element", [f"element(s) {', '.join(sorted(elements))} not supported"])
     if lactim_drawing(std.mol):
         out.warnings.append(LACTIM_WARNING)
-    if azole_tautomer_drawing(std.mol):
+    if std.azole_tautomers_differ:
         out.warnings.append(AZOLE_TAUTOMER_WARNING)
     out.mol, out.original_atoms = std.mol, std.original_atoms
     return out
