@@ -164,7 +164,10 @@ def _card(cfg: RunConfig, registry: Registry, measurements: pd.DataFrame, n_mole
                         "A site type the training data never labels is extrapolated from related types and the "
                         "bounds its sites got in other molecules; the unseen-site-type figures show how far off "
                         "that can be.",
-                        "Tautomers are predicted as drawn."],
+                        "Tautomers are predicted as drawn, except the N-H of an azole ring whose two tautomers "
+                        "differ, which training and prediction alike redraw as one fixed tautomer (the same for "
+                        "every drawing, not necessarily the major one in water); the model does not combine "
+                        "tautomers."],
     }
 
 
