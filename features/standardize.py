@@ -108,9 +108,16 @@ _MAX_AZOLE_TAUTOMERS = 64
 
 def azole_tautomers(mol: Chem.Mol) -> list[Chem.Mol]:
     """The N-H tautomers of ``mol``'s azole rings (each ring's H on each of its ring N in turn, rings
-    combined, at most 64), ``mol`` itself first; atom order is kept."""
+    combined), ``mol`` itself first; atom order is kept.  Beyond 64 combinations only ``mol`` (a
+    polymer-like chain of azoles stays as drawn rather than costing seconds)."""
+    rings = _azole_rings(mol)
+    combos = 1
+    for _, acceptors in rings:
+        combos *= 1 + len(acceptors)
+    if combos > _MAX_AZOLE_TAUTOMERS:
+        return [mol]
     found = [mol]
-    for donors, acceptors in _azole_rings(mol):
+    for donors, acceptors in rings:
         grown = []
         for m in found:
             grown.append(m)
@@ -118,7 +125,7 @@ def azole_tautomers(mol: Chem.Mol) -> list[Chem.Mol]:
                 other = _moved_ring_h(m, donors[0], acc)
                 if other is not None:
                     grown.append(other)
-        found = grown[:_MAX_AZOLE_TAUTOMERS]
+        found = grown
     return found
 
 

@@ -54,3 +54,13 @@ def test_a_named_site_atom_keeps_the_drawing():
     assert named.mol.GetAtomWithIdx(named.site_atom).GetTotalNumHs() == 1
     assert named.smiles == Chem.MolToSmiles(mol)
     assert named.inchikey == standardize_mol(mol).inchikey
+
+
+def test_many_azole_rings_are_left_as_drawn():
+    # six rings: 2^6 = 64 combinations, enumerated; seven: more than 64, the drawing is kept as it is
+    from pkasite.features.standardize import azole_tautomers
+    six = Chem.MolFromSmiles("C" + "C".join(["c1[nH]cnc1"] * 6))
+    seven = Chem.MolFromSmiles("C" + "C".join(["c1[nH]cnc1"] * 7))
+    assert len(azole_tautomers(six)) == 64
+    assert azole_tautomers(seven) == [seven]
+    assert canonical_azole_tautomer(seven) is seven
