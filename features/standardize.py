@@ -157,8 +157,8 @@ def canonical_azole_tautomer(mol: Chem.Mol) -> Chem.Mol:
 
 
 AZOLE_TAUTOMER_WARNING = ("an azole ring whose N-H tautomers are different structures: predicted as one of "
-                          "them chosen by a fixed rule, the same whichever is drawn, which need not be the "
-                          "major one in water")
+                          "them chosen by a fixed rule, the same whichever is drawn (major_species shows it; "
+                          "site atoms and types are that tautomer's), which need not be the major one in water")
 
 
 def quiet_rdkit() -> None:
