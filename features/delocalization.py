@@ -89,21 +89,6 @@ class Conjugation:
                 double[i].append(j), double[j].append(i)
         self.pi, self.single, self.double, self.zl = pi, single, double, zl
 
-    @classmethod
-    def of(cls, mol: Chem.Mol) -> Conjugation:
-        """Straight from an RDKit molecule (hydrogens, implicit or explicit, are not walked)."""
-        atoms = [mol.GetAtomWithIdx(i) for i in range(mol.GetNumAtoms())]
-        zl = [a.GetAtomicNum() for a in atoms]
-        n = len(zl)
-        single: list[list[int]] = [[] for _ in range(n)]
-        double: list[list[int]] = [[] for _ in range(n)]
-        arom: list[tuple[int, int]] = []
-        for k in range(mol.GetNumBonds()):
-            b = mol.GetBondWithIdx(k)
-            add_bond(single, double, arom, b.GetBeginAtomIdx(), b.GetEndAtomIdx(), b.GetBondType(), zl)
-        return cls(zl, [a.GetIsAromatic() for a in atoms], [float(a.GetFormalCharge()) for a in atoms],
-                   [a.GetTotalNumHs(includeNeighbors=True) for a in atoms], single, double, arom)
-
     def _shift(self, start: set[int], seen: set[int], carbon_only: bool = False) -> list[int]:
         """Allyl-type shifts X-A=B -> B from the carriers in ``start``; the new carriers.
 
@@ -126,7 +111,7 @@ class Conjugation:
 
         A site that is part of a double bond (an azinium N-H+) keeps the pair in an orbital of its own."""
         seen = {s}
-        if not self.pi[s] and not self.double[s]:
+        if not self.pi[s]:
             self._shift({s}, seen)
         return seen
 
@@ -143,7 +128,8 @@ class Conjugation:
         return seen
 
     def lone_pair(self, s: int) -> set[int]:
-        """Where the neutral site's lone pair spreads; empty when ``s`` is part of a double bond."""
+        """Where the neutral site's lone pair spreads, ``s`` included; only ``s`` when it is part of a double
+        bond, nothing when it is no N, O or S."""
         if self.zl[s] not in _LONE_PAIR_ELEMENTS:
             return set()
         return self.anion(s)
@@ -163,6 +149,10 @@ def _counts(carriers: set[int], s: int, zl: list[int], dist) -> list[float]:
 def delocalization_row(md: _MolData, s: int, kind: str) -> list[float]:
     """The ``dl_`` columns of site ``s`` of kind ``kind`` (order of :data:`DL_NAMES`)."""
     conj = md.conjugation
-    ion = conj.anion(s) if kind == "acid" else conj.cation(s)
+    if kind == "acid":
+        ion = conj.anion(s)
+        lp = ion if md.zl[s] in _LONE_PAIR_ELEMENTS else set()  # the lone-pair walk is the anion walk
+    else:
+        ion, lp = conj.cation(s), conj.lone_pair(s)
     d = md.dist[s]
-    return _counts(ion, s, md.zl, d) + _counts(conj.lone_pair(s), s, md.zl, d)
+    return _counts(ion, s, md.zl, d) + _counts(lp, s, md.zl, d)

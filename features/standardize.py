@@ -86,8 +86,8 @@ def _moved_ring_h(mol: Chem.Mol, donor: int, acceptor: int) -> Chem.Mol | None:
     return rw.GetMol()
 
 
-def _azole_rings(mol: Chem.Mol) -> list[tuple[list[int], list[int]]]:
-    """Per aromatic five-membered ring with one ring N-H and a pyridine-type ring N: (N-H atoms, other N)."""
+def _azole_rings(mol: Chem.Mol) -> list[tuple[int, list[int]]]:
+    """Per aromatic five-membered ring with one ring N-H and a pyridine-type ring N: (the N-H, the other N)."""
     out = []
     for ring in mol.GetRingInfo().AtomRings():
         if len(ring) != 5:
@@ -99,7 +99,7 @@ def _azole_rings(mol: Chem.Mol) -> list[tuple[list[int], list[int]]]:
         donors = [a.GetIdx() for a in ring_n if a.GetTotalNumHs() == 1]
         acceptors = [a.GetIdx() for a in ring_n if a.GetTotalNumHs() == 0]
         if len(donors) == 1 and acceptors:
-            out.append((donors, acceptors))
+            out.append((donors[0], acceptors))
     return out
 
 
@@ -117,12 +117,12 @@ def azole_tautomers(mol: Chem.Mol) -> list[Chem.Mol]:
     if combos > _MAX_AZOLE_TAUTOMERS:
         return [mol]
     found = [mol]
-    for donors, acceptors in rings:
+    for donor, acceptors in rings:
         grown = []
         for m in found:
             grown.append(m)
             for acc in acceptors:
-                other = _moved_ring_h(m, donors[0], acc)
+                other = _moved_ring_h(m, donor, acc)
                 if other is not None:
                     grown.append(other)
         found = grown
@@ -130,22 +130,15 @@ def azole_tautomers(mol: Chem.Mol) -> list[Chem.Mol]:
 
 
 def _azole_choice(mol: Chem.Mol) -> tuple[Chem.Mol, bool]:
-    """(the fixed azole N-H tautomer of ``mol``, whether its tautomers are different structures)."""
+    """(the fixed azole N-H tautomer of ``mol``, whether its tautomers are different structures: a
+    4(5)-substituted imidazole such as histamine, a 3(5)-substituted pyrazole, a 7H/9H purine, but not
+    imidazole or benzimidazole, whose tautomers are the same structure)."""
     tautomers = azole_tautomers(mol)
     if len(tautomers) == 1:
         return mol, False
     keyed = [(Chem.MolToSmiles(m), k) for k, m in enumerate(tautomers)]
     first = min(keyed)  # ties keep the earliest, the drawn one first
     return tautomers[first[1]], len({key for key, _ in keyed}) > 1
-
-
-def azole_tautomer_drawing(mol: Chem.Mol) -> bool:
-    """True when ``mol`` has an aromatic five-membered ring with an N-H and a pyridine-type N whose
-    other N-H tautomer is a different structure (a 4(5)-substituted imidazole such as histamine, a
-    3(5)-substituted pyrazole, a 7H/9H purine); imidazole itself and benzimidazole, whose tautomers are
-    the same structure, do not count.  Both tautomers are present in water in proportions no drawing
-    tells, and predictions are for the one :func:`canonical_azole_tautomer` picks."""
-    return _azole_choice(mol)[1]
 
 
 def canonical_azole_tautomer(mol: Chem.Mol) -> Chem.Mol:

@@ -12,8 +12,9 @@ import random
 import pytest
 from rdkit import Chem
 
-from pkasite.features.delocalization import DL_NAMES, Conjugation
-from pkasite.features.site_features import FeatureSettings, describe_site, featurize_sites, site_feature_names
+from pkasite.features.delocalization import DL_NAMES
+from pkasite.features.site_features import (FeatureSettings, _MolData, describe_site, featurize_sites,
+                                            site_feature_names)
 
 ON = FeatureSettings(radii=(1,), n_bits=8, mol_fp_bits=0, delocalization=True)
 
@@ -132,4 +133,4 @@ def test_pi_partners_are_the_atoms_with_a_kekule_double_bond(smiles):
     Chem.Kekulize(kek, clearAromaticFlags=False)
     expected = [any(b.GetBondType() in (Chem.BondType.DOUBLE, Chem.BondType.TRIPLE) for b in a.GetBonds())
                 for a in kek.GetAtoms()]
-    assert Conjugation.of(mol).pi == expected
+    assert _MolData(mol, ON, ()).conjugation.pi == expected
