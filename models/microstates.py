@@ -22,8 +22,12 @@ attributed to acid or base sites by which of them lose the proton on that step, 
 "acid constant" and "base constant" are read off the same populations as its charge.
 
 Size.  Microstates are enumerated exactly up to :data:`MAX_EXACT_SITES` sites.  Beyond that, the sites
-farthest outside the titration window are held in their dominant form in the window (their charges
-still act on the others), and :attr:`Microstates.held` names them.
+farthest outside the titration window leave the enumeration (:attr:`Microstates.held` names them) and
+enter by mean field: each carries its average charge at the pH asked, from its own site pKa shifted by
+the average charges of all other sites (``pka_j - sum_k W_jk <q_k>``), solved together with the exact
+populations of the enumerated sites until the charges stop moving (the Bragg-Williams / Tanford-Kirkwood
+mean-field treatment of many interacting sites).  Macroscopic constants are those of the enumerated
+sites in the mean field at ``ph_ref`` (the window centre unless given).
 """
 from __future__ import annotations
 
@@ -185,7 +189,8 @@ class Microstates:
     lactims (:func:`~pkasite.features.site_pairs.lactim_pairs`), whose charged pair O- / N-H+ is the
     neutral lactam: it counts as neutral in :meth:`neutral_fraction`.  The kinds of the steps still follow
     the sites (2-hydroxypyridine's 0.75 is an acid step, the O-H's), as the open data mostly file them;
-    see features/FEATURES.md for the measured alternative.
+    see features/FEATURES.md for the measured alternative.  ``ph_ref``: the pH whose mean field the
+    macroscopic constants use when some sites are solved by mean field (default: the window centre).
     """
 
     pka: np.ndarray
@@ -196,6 +201,7 @@ class Microstates:
     hold: np.ndarray | None = None
     hold_charged: np.ndarray | None = None
     tautomer: np.ndarray | None = None
+    ph_ref: float | None = None
     held: list[int] = field(default_factory=list, init=False)
 
     def __post_init__(self):
@@ -204,32 +210,29 @@ class Microstates:
         n = len(self.pka)
         self.W = np.zeros((n, n)) if self.W is None else np.asarray(self.W, float)
         acid = self.kinds == "acid"
-        # sites to hold fixed: farthest outside the window first
+        self._acid = acid
+        # sites left out of the enumeration when there are too many: farthest outside the window first
         centre = 0.5 * (self.window[0] + self.window[1])
-        free = np.ones(n, bool) if self.hold is None else ~np.asarray(self.hold, bool)
-        if self.hold_charged is not None:
-            free &= ~np.asarray(self.hold_charged, bool)
+        self.ph_ref = centre if self.ph_ref is None else float(self.ph_ref)
+        weak = np.zeros(n, bool) if self.hold is None else np.asarray(self.hold, bool)
+        strong = np.zeros(n, bool) if self.hold_charged is None else np.asarray(self.hold_charged, bool)
+        free = ~weak & ~strong
         if free.sum() > MAX_EXACT_SITES:
             order = [i for i in np.argsort(-np.abs(self.pka - centre), kind="stable") if free[i]]
             for i in order[: int(free.sum()) - MAX_EXACT_SITES]:
                 free[i] = False
         self.held = [int(i) for i in np.flatnonzero(~free)]
-        # sites held for being too many take their dominant form at the window centre; weak sites
-        # (``hold``) stay uncharged: acids keep their proton, bases stay without one
-        held_bound = self.pka > centre
-        if self.hold is not None:
-            held_bound = np.where(np.asarray(self.hold, bool), acid, held_bound)
-        if self.hold_charged is not None:  # strong sites: acids without their proton, bases with one
-            held_bound = np.where(np.asarray(self.hold_charged, bool), ~acid, held_bound)
-        held_q = np.where(acid, np.where(held_bound, 0.0, -1.0), np.where(held_bound, 1.0, 0.0))
+        # weak sites (``hold``) stay uncharged: acids keep their proton, bases stay without one; strong
+        # sites (``hold_charged``) stay charged; the rest of the held sites are solved by mean field
+        self.mean_field = np.flatnonzero(~free & ~weak & ~strong)
+        self._fixed_q = np.where(strong, np.where(acid, -1.0, 1.0), 0.0)
         idx = np.flatnonzero(free)
         k = len(idx)
         states = ((np.arange(2 ** k)[:, None] >> np.arange(k)[None, :]) & 1).astype(bool)  # bound?
         q = np.where(acid[idx], np.where(states, 0.0, -1.0), np.where(states, 1.0, 0.0))
         Wf = self.W[np.ix_(idx, idx)]
         pair = 0.5 * np.einsum("si,ij,sj->s", q, Wf, q)
-        held_field = (self.W[np.ix_(idx, ~free)] @ held_q[~free]) if (~free).any() else np.zeros(k)
-        log_beta = states @ self.pka[idx] - pair - q @ held_field
+        log_beta = states @ self.pka[idx] - pair
         if self.exclusive is not None and k:
             ex = np.asarray(self.exclusive, bool)[np.ix_(idx, idx)]
             for i, j in zip(*np.nonzero(np.triu(ex, 1))):
@@ -237,38 +240,85 @@ class Microstates:
         self.free = idx
         self.states = states
         self.q = q
-        self.held_q = held_q
-        self.log_beta = log_beta
+        self._log_beta0 = log_beta
+        self._field_cache: dict[float, np.ndarray] = {}
         self.n_bound = states.sum(axis=1)
         self.acid_bound = states[:, acid[idx]].sum(axis=1)
+        self.held_q = self.held_charges(self.ph_ref)
+        self.log_beta = self._log_beta(self.held_q)
         T = np.zeros((k, k), bool) if self.tautomer is None else np.asarray(self.tautomer, bool)[np.ix_(idx, idx)]
         self.tautomer_free = T
 
+    # ------------------------------------------------------------------ sites outside the enumeration
+    def _log_beta(self, held_q: np.ndarray) -> np.ndarray:
+        """Formation constants of the enumerated microstates in the field of the held sites' charges."""
+        if not self.held:
+            return self._log_beta0
+        field_ = self.W[np.ix_(self.free, self.held)] @ held_q[self.held]
+        return self._log_beta0 - self.q @ field_
+
+    def held_charges(self, ph: float) -> np.ndarray:
+        """Per site, the charge of the held sites at ``ph`` (0 for enumerated sites): fixed for weak and
+        strong sites, the self-consistent mean-field average for the sites beyond the exact set."""
+        ph = float(ph)
+        if ph in self._field_cache:
+            return self._field_cache[ph]
+        hq = self._fixed_q.copy()
+        hq[self.free] = 0.0
+        mf = self.mean_field
+        if len(mf):
+            acid = self._acid[mf]
+            W_mf = self.W[mf]
+            if self._field_cache:  # start from the last solution (a titration curve moves little per step)
+                hq[mf] = next(reversed(self._field_cache.values()))[mf]
+            else:  # or from independent sites
+                pb = 1.0 / (1.0 + 10.0 ** (ph - self.pka[mf]))
+                hq[mf] = np.where(acid, pb - 1.0, pb)
+            for _ in range(1000):
+                lw = self._log_beta(hq) - ph * self.n_bound
+                c = hq.copy()
+                c[self.free] = 10.0 ** (lw - _logsumexp10(lw)) @ self.q
+                # a site's bound-to-unbound log ratio is pka - ph - (its charge change, +1) * field
+                pb = 1.0 / (1.0 + 10.0 ** np.clip(ph + W_mf @ c - self.pka[mf], -300.0, 300.0))
+                new = np.where(acid, pb - 1.0, pb)
+                step = new - hq[mf]
+                hq[mf] += 0.5 * step  # damped: a full step oscillates between like charges that repel
+                if np.max(np.abs(step)) < 1e-9:
+                    break
+        if len(self._field_cache) < 512:
+            self._field_cache[ph] = hq
+        return hq
+
     # ------------------------------------------------------------------ populations
     def log_weights(self, ph: float) -> np.ndarray:
-        return self.log_beta - ph * self.n_bound
+        log_beta = self._log_beta(self.held_charges(ph)) if len(self.mean_field) else self.log_beta
+        return log_beta - ph * self.n_bound
 
     def populations(self, ph: float) -> np.ndarray:
         lw = self.log_weights(ph)
         return 10.0 ** (lw - _logsumexp10(lw))
 
     def mean_charge(self, ph: float, base_charge: float = 0.0) -> float:
-        held = float(self.held_q[self.held].sum()) if self.held else 0.0
+        held = float(self.held_charges(ph)[self.held].sum()) if self.held else 0.0
         return float(base_charge + held + self.populations(ph) @ self.q.sum(axis=1))
 
     def neutral_fraction(self, ph: float) -> float:
         """Population of the uncharged microstates: every site uncharged, or charged only as the O- / N-H+
-        pair of a lactim, which is the neutral lactam (0 when a held site is charged)."""
-        if self.held and np.any(self.held_q[self.held] != 0):
+        pair of a lactim, which is the neutral lactam (0 when a site held charged; each mean-field site
+        multiplies it by its own uncharged share)."""
+        if self.held and np.any(self._fixed_q[self.held] != 0):
             return 0.0
         q, T = self.q, self.tautomer_free
         paired = ((q[:, :, None] * q[:, None, :]) < 0) & T[None, :, :]  # charged with a charged partner
         ok = (q == 0) | paired.any(axis=2)
-        return float(self.populations(ph)[np.all(ok, axis=1) & (q.sum(axis=1) == 0)].sum())
+        free = float(self.populations(ph)[np.all(ok, axis=1) & (q.sum(axis=1) == 0)].sum())
+        return free * float(np.prod(1.0 - np.abs(self.held_charges(ph)[self.mean_field])))
 
     def major_protonation(self, ph: float) -> np.ndarray:
-        """Per site: does it carry its proton in the most populated microstate."""
-        out = self.pka > 0.5 * (self.window[0] + self.window[1])
+        """Per site: does it carry its proton in the most populated microstate (a mean-field site: when
+        it is bound more than half of the time)."""
+        hq = self.held_charges(ph)
+        out = np.where(self._acid, hq > -0.5, hq > 0.5)
         out[self.free] = self.states[int(np.argmax(self.log_weights(ph)))]
         return out
 
@@ -281,6 +331,8 @@ class Microstates:
 
     def mean_charge_curve(self, ph: np.ndarray, base_charge: float = 0.0) -> np.ndarray:
         """Mean charge at each pH of an array (one matrix operation)."""
+        if len(self.mean_field):
+            return np.array([self.mean_charge(float(x), base_charge) for x in np.atleast_1d(ph)])
         lw = self.log_beta[None, :] - np.asarray(ph, float)[:, None] * self.n_bound[None, :]
         lw = lw - lw.max(axis=1, keepdims=True)
         w = 10.0 ** lw

@@ -248,10 +248,10 @@ def _major_species(mol: Chem.Mol, atoms, kinds, protonated) -> str:
 
 
 def molecule_microstates(mol: Chem.Mol, atoms, kinds, pka, priors, interactions,
-                         window: tuple[float, float] = WINDOW) -> Microstates:
+                         window: tuple[float, float] = WINDOW, ph: float | None = None) -> Microstates:
     """The molecule's microstates: its sites with their predicted pKa, pair terms from the bundle's
     interaction model, tautomeric pairs exclusive, weak sites held, lactim pairs counted as neutral (see
-    :mod:`pkasite.models.microstates`)."""
+    :mod:`pkasite.models.microstates`); beyond the exact set, sites enter by mean field at ``ph``."""
     kinds = np.asarray(kinds)
     W = ex = taut = None
     if len(atoms) > 1:
@@ -259,7 +259,7 @@ def molecule_microstates(mol: Chem.Mol, atoms, kinds, pka, priors, interactions,
         taut = lactim_pairs(mol, atoms, kinds)
     weak, strong = site_holds(kinds, priors, pka, window)
     return Microstates(np.asarray(pka, float), kinds, W, window=window, exclusive=ex, hold=weak, hold_charged=strong,
-                       tautomer=taut)
+                       tautomer=taut, ph_ref=ph)
 
 
 def _site_warnings(bundle: ModelBundle, site_type, kind: str, similarity: float, pka: float) -> list[str]:
@@ -367,7 +367,7 @@ def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4, level: fl
         charge0 = float(Chem.GetFormalCharge(p.mol))
         row["macro_pkas"] = row["macro_pkas_all"] = ""
         if len(idx):
-            ms = molecule_microstates(p.mol, [items[j][1] for j in idx], k, v, priors[idx], interactions, window)
+            ms = molecule_microstates(p.mol, [items[j][1] for j in idx], k, v, priors[idx], interactions, window, ph)
             for kind, pick in (("acid", np.argmin), ("base", np.argmax)):
                 sel = idx[k == kind]
                 if len(sel):
@@ -388,8 +388,9 @@ def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4, level: fl
             row["major_species"] = _major_species(p.mol, [items[j][1] for j in idx], k, ms.major_protonation(ph))
             n_free = len(idx) - int((ms.hold | ms.hold_charged).sum())
             if n_free > MAX_EXACT_SITES:
-                warns.append(f"{n_free} sites: the {n_free - MAX_EXACT_SITES} farthest outside the window held "
-                             "in their dominant form")
+                warns.append(f"{n_free} sites: the {n_free - MAX_EXACT_SITES} farthest outside the window enter "
+                             f"by mean field (average charges at pH {ph:g}, not enumerated); macro_pkas lists "
+                             f"the constants of the {MAX_EXACT_SITES} enumerated sites in that field")
         else:
             row["charge_at_ph"] = round(charge0, 3)
             row["fraction_neutral"] = 1.0 if charge0 == 0 else 0.0

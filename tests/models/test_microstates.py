@@ -301,3 +301,50 @@ def test_a_lactim_pair_is_neutral_as_the_lactam():
     assert list(ms.macro_constants()[1]) == list(plain.macro_constants()[1]) == ["acid", "base"]
     # outside the pair's range the charged species count as charged
     assert ms.neutral_fraction(0.75) == pytest.approx(0.5, abs=0.01)
+
+
+def _amine_chain(n: int):
+    """Site pKa and pair matrix of a linear chain of ``n`` amines two carbons apart (an oligo-
+    ethyleneimine): end amines 10.0, inner 9.5, pair terms from the packaged interaction model."""
+    from pkasite.models.microstates import default_interaction_model
+    d = 3.0 * np.abs(np.arange(n)[:, None] - np.arange(n)[None, :])
+    kinds = np.full(n, "base")
+    pka = np.full(n, 9.5)
+    pka[[0, -1]] = 10.0
+    return pka, kinds, default_interaction_model().matrix(d, np.zeros((n, n), bool), kinds=kinds)
+
+
+def test_sites_beyond_the_exact_set_follow_exact_enumeration_by_mean_field(monkeypatch):
+    # reference: exact enumeration of all 4,096 microstates of the same 12 sites; with only 6 enumerated
+    # and 6 by mean field the charge follows it across the titration
+    import pkasite.models.microstates as ms_mod
+    pka, kinds, W = _amine_chain(12)
+    exact = Microstates(pka, kinds, W)
+    assert not exact.held
+    monkeypatch.setattr(ms_mod, "MAX_EXACT_SITES", 6)
+    approx = ms_mod.Microstates(pka, kinds, W, ph_ref=7.4)
+    assert len(approx.held) == 6 and len(approx.mean_field) == 6
+    for ph in (3.0, 5.0, 7.4, 9.0, 11.0):
+        assert approx.mean_charge(ph) == pytest.approx(exact.mean_charge(ph), abs=0.25), ph
+    # the held sites are not all counted protonated, as a fixed dominant form at pH 7.4 would count them
+    assert approx.held_charges(7.4)[approx.held].sum() < 5.0
+    assert approx.neutral_fraction(7.4) == pytest.approx(exact.neutral_fraction(7.4), abs=1e-6)
+    # a mean-field site counts as protonated in the major form when it is bound more than half the time
+    assert approx.major_protonation(2.0).all() and not approx.major_protonation(12.0).any()
+
+
+def test_long_polyamine_charge_per_amine_does_not_grow_with_length():
+    # Before the mean field, sites beyond 12 were held protonated at pH 7.4, so a 40-amine chain came out
+    # +31 (0.78 per amine).  The charge per site of a uniform chain levels off with length (only the ends
+    # differ); linear poly(ethyleneimine) is roughly half protonated or less near neutral pH (M. Borkovec
+    # and G. J. M. Koper, titrations of linear PEI, from memory)
+    pka12, kinds12, W12 = _amine_chain(12)
+    per12 = Microstates(pka12, kinds12, W12).mean_charge(7.4) / 12
+    pka40, kinds40, W40 = _amine_chain(40)
+    long_chain = Microstates(pka40, kinds40, W40, ph_ref=7.4)
+    per40 = long_chain.mean_charge(7.4) / 40
+    assert len(long_chain.held) == 28
+    assert 0.3 < per40 < 0.55 and per40 == pytest.approx(per12, abs=0.06)
+    # the charge still falls with pH, and the isoelectric search needs no acid here
+    curve = long_chain.mean_charge_curve(np.array([4.0, 7.4, 10.0]))
+    assert curve[0] > curve[1] > curve[2] and curve[1] == pytest.approx(long_chain.mean_charge(7.4))

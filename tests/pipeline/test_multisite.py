@@ -136,3 +136,16 @@ def test_metformin_is_a_monocation_at_physiological_ph(predicted):
     assert max(constants) == pytest.approx(12.4, abs=2.0) and min(constants) == pytest.approx(2.8, abs=1.5)
     assert _formal_charge(m["major_species"]) == 1
     assert m["charge_at_ph"] == pytest.approx(_dibase_charge(12.4, 2.8), abs=0.05)
+
+
+def test_long_polyamine_enters_by_mean_field_with_a_warning():
+    # 40 amines: 12 enumerated, 28 by mean field; the charge per amine stays near that of a 12-amine
+    # chain enumerated exactly (a uniform chain levels off; linear poly(ethyleneimine) is roughly half
+    # protonated or less near neutral pH, from memory) instead of counting every held amine protonated
+    ids, smiles = ["n12", "n40"], ["N" + "CCN" * 11, "N" + "CCN" * 39]
+    mols, _ = predict_records(load_bundle(default_model_path()), ids, smiles, ph=7.4)
+    m = mols.set_index("id")
+    per12, per40 = m.loc["n12", "charge_at_ph"] / 12, m.loc["n40", "charge_at_ph"] / 40
+    assert 0.25 < per40 < 0.6 and per40 == pytest.approx(per12, abs=0.08)
+    assert "mean field" in m.loc["n40", "warnings"] and "mean field" not in str(m.loc["n12", "warnings"])
+    assert len(_macro(m.loc["n40"], 0.0, 14.0)) == 12
