@@ -604,6 +604,21 @@ def named_site_contradicted(mol: Chem.Mol, kind: str, atom: int, value: float, m
             and any(_holds(catalog, s, value, margin) for s in candidates if s.atom != atom))
 
 
+def kind_contradicted(mol: Chem.Mol, kind: str, value: float, margin: float = 2.0,
+                      catalog: Catalog | None = None, sites: Sequence[Site] | None = None) -> bool:
+    """Whether a value filed as a constant of ``kind`` fits no candidate site of that kind by the
+    catalog's ranges (each widened by ``margin``) while a site of the other kind's range holds it:
+    glycinamide's amine constant 8.0 filed as an acid (its only acid candidate, the amide N-H, is about
+    15), pyridine's 5.2 filed as an acid.  Either the kind is misfiled or the catalog misses the site's
+    range; the record is worth a look, and nothing here says which.  ``sites``: the molecule's
+    :func:`find_sites`, when the caller has them."""
+    catalog = catalog or load_catalog()
+    sites = find_sites(mol, catalog) if sites is None else sites
+    own = [s for s in sites if s.kind == kind]
+    return (not any(_holds(catalog, s, value, margin) for s in own)
+            and any(_holds(catalog, s, value, margin) for s in sites if s.kind != kind))
+
+
 # ----------------------------------------------------------------------------- a source's group names
 
 #: Acid sites that are oxo-acid O-H groups: a source calls them by their group (COOH, SO3H, PO3H2), so its

@@ -25,7 +25,7 @@ from .ingest import PER_KIND, WHOLE_COMPOUND
 MEASUREMENT_COLUMNS = [
     "record_id", "smiles", "inchikey", "kind", "pka", "n", "spread", "temperature_c", "method",
     "source", "licence", "site_atom", "constant_rank", "drawn_charge", "members", "split", "in_house",
-    "conflict",
+    "conflict", "kind_suspect",
 ]
 REJECT_COLUMNS = ["source", "record_id", "file", "row", "reason", "detail", "smiles", "value_text"]
 
@@ -321,6 +321,7 @@ def curate(raw: pd.DataFrame, cfg: CurationConfig, processes: int = 1) -> Curati
         rows, superseded = _apply_inhouse_override(rows)
         rejects.extend(superseded)
     measurements, conflicts, merged = _aggregate(rows, cfg)
+    measurements["kind_suspect"] = _kind_suspects(measurements, cfg.numbering_range_margin)
     rejects.extend(conflicts)
     rejects_df = pd.DataFrame(rejects, columns=REJECT_COLUMNS)
     summary = summarize(raw, measurements, rejects_df, _constant_counts(merged))
@@ -582,6 +583,24 @@ def _aggregate(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFrame, l
     return result, conflicts, merged
 
 
+def _kind_suspects(measurements: pd.DataFrame, margin: float | None) -> pd.Series:
+    """Per measurement: its value fits no site of its kind by the catalog's ranges (widened by
+    ``margin``) but a site of the other kind (:func:`~pkasite.features.sites.kind_contradicted`): a
+    kind misfiled in the source, or a site type whose catalog range is too narrow.  Flagged for review,
+    kept as they are (as replicate conflicts with ``conflict_action: flag``).  Records that name their
+    site or are drawn against their kind are not checked: their site is settled otherwise."""
+    from pkasite.features.sites import kind_contradicted
+    from pkasite.features.standardize import parse_smiles
+
+    out = pd.Series(False, index=measurements.index, dtype=bool)
+    if margin is None or not len(measurements):
+        return out
+    check = measurements["site_atom"].isna() & (measurements["drawn_charge"] == 0)
+    for label, smiles, kind, value in measurements.loc[check, ["smiles", "kind", "pka"]].itertuples():
+        out[label] = kind_contradicted(parse_smiles(smiles), kind, float(value), margin)
+    return out
+
+
 def _constant_counts(merged: list[dict]) -> dict:
     """Rows kept as constants of rank 2 or more, and rows kept that the former numbering rule rejected."""
     recovered = [r for r in merged if r["numbering_rule_later"]]
@@ -625,6 +644,7 @@ def summarize(raw: pd.DataFrame, measurements: pd.DataFrame, rejects: pd.DataFra
         "measurements_by_rank": _by_rank(measurements),
         "replicate_groups": int((measurements["n"] > 1).sum()) if len(measurements) else 0,
         "flagged_conflicts": int(measurements["conflict"].sum()) if len(measurements) else 0,
+        "kind_suspects": int(measurements["kind_suspect"].sum()) if "kind_suspect" in measurements else 0,
         **(constants or {"later_constants_kept": 0, "ranked_by_drawing": 0, "drawn_against_kind": 0,
                          "sites_from_groups": 0, "first_constants_recovered": 0, "rows_recovered": 0}),
     }
@@ -653,6 +673,10 @@ def format_summary(summary: dict) -> str:
                  "titrating group singles out among several)")
     lines.append(f"rows recovered     {summary['rows_recovered']:>7}  (kept, rejected by the former numbering rule; "
                  f"{summary['first_constants_recovered']} of them rank 1)")
+    if summary.get("kind_suspects"):
+        lines.append(f"kind suspects      {summary['kind_suspects']:>7}  (kept; the value fits only a site of the "
+                     "other kind by the catalog's ranges: a misfiled acid/base kind or a catalog range to widen, "
+                     "listed by kind_suspect in the measurements)")
     if summary["flagged_conflicts"]:
         lines.append(f"flagged conflicts  {summary['flagged_conflicts']:>7}")
     return "\n".join(lines)

@@ -361,7 +361,9 @@ def _curation(bundle: ModelBundle) -> str:
              ["measurements (after merging replicates)", f"{cur.get('measurements', 0):,}"]]
     rows += [[f"&nbsp;&nbsp;{_e(k)}", f"{v:,}"] for k, v in cur.get("measurements_by_kind", {}).items()]
     rows += [["replicate groups (n &gt; 1)", f"{cur.get('replicate_groups', 0):,}"],
-             ["flagged conflicting replicates", f"{cur.get('flagged_conflicts', 0):,}"]]
+             ["flagged conflicting replicates", f"{cur.get('flagged_conflicts', 0):,}"],
+             ["kind suspects (kept; the value fits only a site of the other kind by the catalog's ranges)",
+              f"{cur.get('kind_suspects', 0):,}"]]
     # how each measurement meets its prediction in the value-free figures; none of these reads the value
     rows += [["later constants (rank 2 or more of their kind; compared with that macro constant)",
               f"{cur.get('later_constants_kept', 0):,}"],

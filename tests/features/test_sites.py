@@ -713,3 +713,17 @@ def test_a_rank_past_the_sites_of_its_kind_has_no_site():
     assert assign_site(res, "acid", rank=2).type == "phenol"
     with pytest.raises(RankWithoutSiteError):
         assign_site(res, "acid", rank=3)
+
+
+def test_kind_contradicted_reads_the_catalog_ranges_of_both_kinds():
+    from pkasite.features.sites import kind_contradicted
+    # 4-aminobutanoic acid: its amine's pKaH (10.6, CRC, from memory) filed as an acid fits no acid
+    # site's range (a carboxylic acid is about 4), the amine's range holds it; filed under their own
+    # kinds, the amine's 10.6 and the carboxylic acid's 4.0 are in order
+    gaba = Chem.MolFromSmiles("NCCCC(=O)O")
+    assert kind_contradicted(gaba, "acid", 10.6)
+    assert not kind_contradicted(gaba, "acid", 4.0) and not kind_contradicted(gaba, "base", 10.6)
+    # acetic acid's 4.76 (CRC, from memory) filed as a base: no base site, the carboxylic acid holds it
+    assert kind_contradicted(Chem.MolFromSmiles("CC(=O)O"), "base", 4.76)
+    # a molecule without sites of the other kind is never flagged: phenol at an odd value
+    assert not kind_contradicted(Chem.MolFromSmiles("Oc1ccccc1"), "acid", 30.0)

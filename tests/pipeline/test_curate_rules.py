@@ -9,7 +9,7 @@ import pytest
 from rdkit import Chem
 
 from pkasite.pipeline.config import CurationConfig
-from pkasite.pipeline.curate import Reject, curate, parse_temperature, parse_value
+from pkasite.pipeline.curate import Reject, curate, format_summary, parse_temperature, parse_value
 from pkasite.pipeline.ingest import WHOLE_COMPOUND
 
 from conftest import raw_rows as raw
@@ -260,3 +260,22 @@ def test_a_named_group_whose_site_cannot_hold_the_value_is_a_group_conflict():
     assert res.summary["sites_from_groups"] == 1 and res.summary["accounted"]
     off = curate(raw(*rows[:1]), CurationConfig(numbering_range_margin=None))
     assert off.rejects.empty and off.summary["sites_from_groups"] == 1
+
+
+def test_a_value_only_a_site_of_the_other_kind_can_hold_is_flagged_not_dropped():
+    # glycinamide's amine constant (about 8.0, CRC Handbook, from memory) filed as an acid: its only acid
+    # candidate, the amide N-H (about 15), cannot hold 8.0, its amine can; pyridine's 5.2 (CRC, from
+    # memory) filed as an acid has no acid site at all.  Acetic acid's 4.76 and the same glycinamide
+    # value filed as a base are in order.  Flagged for review, kept as they are.
+    rows = [{"smiles": "NCC(N)=O", "kind": "acid", "value_text": "8.0"},
+            {"smiles": "c1ccncc1", "kind": "acid", "value_text": "5.2"},
+            {"smiles": "CC(=O)O", "kind": "acid", "value_text": "4.76"},
+            {"smiles": "NCC(N)=O", "kind": "base", "value_text": "8.0"}]
+    res = curate(raw(*rows), CFG)
+    assert res.rejects.empty and res.summary["accounted"]
+    flags = res.measurements.set_index("members")["kind_suspect"].to_dict()
+    assert flags == {"t:r1": True, "t:r2": True, "t:r3": False, "t:r4": False}
+    assert res.summary["kind_suspects"] == 2
+    assert "kind suspects" in format_summary(res.summary)
+    off = curate(raw(*rows), CurationConfig(numbering_range_margin=None))
+    assert not off.measurements["kind_suspect"].any() and off.summary["kind_suspects"] == 0
