@@ -645,6 +645,8 @@ def summarize(raw: pd.DataFrame, measurements: pd.DataFrame, rejects: pd.DataFra
         "replicate_groups": int((measurements["n"] > 1).sum()) if len(measurements) else 0,
         "flagged_conflicts": int(measurements["conflict"].sum()) if len(measurements) else 0,
         "kind_suspects": int(measurements["kind_suspect"].sum()) if "kind_suspect" in measurements else 0,
+        "kind_suspect_examples": (measurements.loc[measurements["kind_suspect"].astype(bool), "record_id"].head(5).tolist()
+                                  if "kind_suspect" in measurements else []),
         **(constants or {"later_constants_kept": 0, "ranked_by_drawing": 0, "drawn_against_kind": 0,
                          "sites_from_groups": 0, "first_constants_recovered": 0, "rows_recovered": 0}),
     }
@@ -677,6 +679,7 @@ def format_summary(summary: dict) -> str:
         lines.append(f"kind suspects      {summary['kind_suspects']:>7}  (kept; the value fits only a site of the "
                      "other kind by the catalog's ranges: a misfiled acid/base kind or a catalog range to widen, "
                      "listed by kind_suspect in the measurements)")
+        lines.append("  first: " + ", ".join(summary.get("kind_suspect_examples", [])))
     if summary["flagged_conflicts"]:
         lines.append(f"flagged conflicts  {summary['flagged_conflicts']:>7}")
     return "\n".join(lines)

@@ -276,6 +276,6 @@ def test_a_value_only_a_site_of_the_other_kind_can_hold_is_flagged_not_dropped()
     flags = res.measurements.set_index("members")["kind_suspect"].to_dict()
     assert flags == {"t:r1": True, "t:r2": True, "t:r3": False, "t:r4": False}
     assert res.summary["kind_suspects"] == 2
-    assert "kind suspects" in format_summary(res.summary)
+    assert "kind suspects" in format_summary(res.summary) and "t:r1, t:r2" in format_summary(res.summary)
     off = curate(raw(*rows), CurationConfig(numbering_range_margin=None))
     assert not off.measurements["kind_suspect"].any() and off.summary["kind_suspects"] == 0
