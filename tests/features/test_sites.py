@@ -242,6 +242,18 @@ def test_enough_reference_molecules():
         ("Cn1ccccc1=N", 7, "azinylidene_imine"),
         ("CC(=O)N=c1ccccn1C", 3, "imine"),
         ("N=C1CCCCC1", 0, "imine"),
+        # saccharin's ring N-H, about 1.6-2.2 against 4.5 for open-chain N-acetylbenzenesulfonamide
+        # (handbook, from memory); the open-chain one keeps its type
+        ("O=C1NS(=O)(=O)c2ccccc12", 2, "cyclic_acyl_sulfonamide_nh"),
+        ("CC(=O)NS(=O)(=O)c1ccccc1", 3, "acyl_sulfonamide_nh"),
+        # oxadiazolones, acids about 6-7 (azilsartan's about 6.1; drug data, from memory), had been pyrazole
+        # or imidazole N-H (about 14); both N-H tautomers of the 1,2,4 ring, the 1,3,4 ring, the thia
+        # analogue; 2(3H)-benzoxazolone, with no second ring N, stays an aromatic lactam N-H
+        ("Cc1n[nH]c(=O)o1", 3, "oxadiazolone_nh"),
+        ("O=c1[nH]c(C)no1", 2, "oxadiazolone_nh"),
+        ("O=c1nc(C)[nH]o1", 5, "oxadiazolone_nh"),
+        ("Cc1n[nH]c(=O)s1", 3, "oxadiazolone_nh"),
+        ("O=c1[nH]c2ccccc2o1", 2, "lactam_nh_aromatic"),
     ],
 )
 def test_site_types_of_textbook_groups(smiles, atom, site_type):
