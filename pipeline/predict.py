@@ -27,7 +27,7 @@ from pkasite.features.sites import KINDS, find_sites, load_catalog
 from pkasite.features.standardize import (AZOLE_TAUTOMER_WARNING, LACTIM_WARNING, StructureError, lactim_drawing,
                                           quiet_rdkit, smiles_text_problem, standardize_mol)
 from pkasite.models.domain import similarity_bin, tanimoto_max
-from pkasite.models.microstates import MAX_EXACT_SITES, Microstates, default_interaction_model, site_holds
+from pkasite.models.microstates import Microstates, default_interaction_model, site_holds
 from pkasite.models.prior_blend import blend
 
 from .bundle import ModelBundle
@@ -386,11 +386,10 @@ def predict_records(bundle: ModelBundle, ids, smiles, ph: float = 7.4, level: fl
             row["charge_at_ph"] = round(ms.mean_charge(ph, charge0), 3)
             row["fraction_neutral"] = round(ms.neutral_fraction(ph), 4) if charge0 == 0 else 0.0
             row["major_species"] = _major_species(p.mol, [items[j][1] for j in idx], k, ms.major_protonation(ph))
-            n_free = len(idx) - int((ms.hold | ms.hold_charged).sum())
-            if n_free > MAX_EXACT_SITES:
-                warns.append(f"{n_free} sites: the {n_free - MAX_EXACT_SITES} farthest outside the window enter "
-                             f"by mean field (average charges at pH {ph:g}, not enumerated); macro_pkas lists "
-                             f"the constants of the {MAX_EXACT_SITES} enumerated sites in that field")
+            if len(ms.mean_field):
+                warns.append(f"{len(ms.free) + len(ms.mean_field)} sites: the {len(ms.mean_field)} farthest outside "
+                             f"the window enter by mean field (average charges at pH {ph:g}, not enumerated); "
+                             f"macro_pkas lists the constants of the {len(ms.free)} enumerated sites in that field")
         else:
             row["charge_at_ph"] = round(charge0, 3)
             row["fraction_neutral"] = 1.0 if charge0 == 0 else 0.0
