@@ -127,6 +127,10 @@ def print_run(r: dict) -> None:
                       f"({t[f'test_rmse_low_{kind}']:.3f}-{t[f'test_rmse_high_{kind}']:.3f}), Morgan baseline "
                       f"{t[f'baseline_mol_morgan_test_rmse_{kind}']:.3f}, site attribution check (diagnostic) "
                       f"{t[f'site_attribution_check_test_rmse_{kind}']:.3f}")
+                if f"unflagged_test_rmse_{kind}" in t:
+                    print(f"    without the {t[f'test_n_{kind}'] - t[f'unflagged_test_n_{kind}']} measurements flagged "
+                          f"kind_suspect (diagnostic: the flag reads the value): RMSE "
+                          f"{t[f'unflagged_test_rmse_{kind}']:.3f}")
     if r.get("coverage"):
         cov = pd.DataFrame(r["coverage"])
         cov["observed (95% CI)"] = cov.apply(

@@ -171,6 +171,9 @@ class DomainConfig(_Strict):
 class TrainConfig(_Strict):
     fit_splits: list[str] | None = None     # e.g. [train]: fit only on these file splits
     eval_splits: list[str] | None = None    # e.g. [test]: evaluate once on these
+    # fit (and cross-validate) the measurements curation flags kind_suspect; false withholds them from
+    # fitting and CV, never from the held-out evaluation (features/FEATURES.md: measured on CV)
+    fit_kind_suspects: bool = False
 
 
 class MlflowConfig(_Strict):

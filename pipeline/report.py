@@ -362,8 +362,11 @@ def _curation(bundle: ModelBundle) -> str:
     rows += [[f"&nbsp;&nbsp;{_e(k)}", f"{v:,}"] for k, v in cur.get("measurements_by_kind", {}).items()]
     rows += [["replicate groups (n &gt; 1)", f"{cur.get('replicate_groups', 0):,}"],
              ["flagged conflicting replicates", f"{cur.get('flagged_conflicts', 0):,}"],
-             ["kind suspects (kept; the value fits only a site of the other kind by the catalog's ranges)",
+             ["kind suspects (the value fits only a site of the other kind by the catalog's ranges)",
               f"{cur.get('kind_suspects', 0):,}"]]
+    if "kind_suspects_withheld" in bundle.card:
+        rows += [["&nbsp;&nbsp;of them withheld from fitting and cross-validation (train.fit_kind_suspects: "
+                  "false; a held-out evaluation keeps them)", f"{bundle.card['kind_suspects_withheld']:,}"]]
     # how each measurement meets its prediction in the value-free figures; none of these reads the value
     rows += [["later constants (rank 2 or more of their kind; compared with that macro constant)",
               f"{cur.get('later_constants_kept', 0):,}"],
@@ -668,7 +671,10 @@ def _model_card(bundle: ModelBundle) -> str:
     if card.get("heldout"):
         out.append("<h3>Held-out evaluation</h3>" + _table(
             ["metric", "value"], [[_e(k), _num(v, 3) if isinstance(v, float) else _e(v)]
-                                  for k, v in sorted(card["heldout"].items())], numeric={1}))
+                                  for k, v in sorted(card["heldout"].items())], numeric={1})
+            + "<p>Metrics named site_attribution_check_... or unflagged_... are diagnostics that read the "
+              "measured value (to choose the site, or through the kind_suspect flag that leaves out rows); "
+              "test_... and baseline_... are value-free.</p>")
     out.append(f"<h3>Applicability domain and intervals</h3><p>{_e(card.get('domain_note', ''))}</p>")
     if card.get("limitations"):
         out.append("<h3>Limitations</h3><ul>" + "".join(f"<li>{_e(x)}</li>" for x in card["limitations"]) + "</ul>")

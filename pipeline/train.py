@@ -22,7 +22,7 @@ from pkasite.models.prior_blend import blend, prior_weights
 from pkasite.models.regressor import FitJob, SiteRegressor, fit_many
 from pkasite.models.splits import group_kfold, murcko_scaffold, unseen_group_folds
 
-from .config import RunConfig, booster_params
+from .config import RunConfig, TrainConfig, booster_params
 from .parallel import map_slices, process_count, split_even
 from . import evaluation as E
 from .sitetable import SiteTable, build_site_table, site_matrix
@@ -602,7 +602,9 @@ def evaluate_holdout(reg: SiteRegressor, measurements: pd.DataFrame, cfg: RunCon
 
     ``test_<metric>_<kind>``: the molecule's predicted constant against the value (headline);
     ``attribution_check_test_<metric>_<kind>``: the diagnostic at the site the value is attached to
-    (by the model's predictions and the value, as in training).
+    (by the model's predictions and the value, as in training); ``unflagged_test_<metric>_<kind>``: the
+    headline's comparison on the measurements curation does not flag ``kind_suspect``, a diagnostic too
+    (the flag reads the value).
     """
     prep = prepare(measurements, cfg)
     site_pred, sim = heldout_site_predictions(reg, prep, train_bits, train_prep, unseen_type_weight)
@@ -632,6 +634,11 @@ def evaluate_holdout(reg: SiteRegressor, measurements: pd.DataFrame, cfg: RunCon
                     if k != "n"})
         out.update({f"baseline_mol_morgan_test_{k}_{kind}": v for k, v in point_metrics(y, base_pred[ids]).items()
                     if k != "n"})
+        if "kind_suspect" in measurements:
+            flagged = set(measurements.loc[measurements["kind_suspect"].fillna(False).astype(bool), "record_id"])
+            keep = ~sel["record_id"].isin(flagged).to_numpy()
+            out.update({f"unflagged_test_{k}_{kind}": v
+                        for k, v in point_metrics(y[keep], constant[ids][keep]).items()})
     return out, residuals
 
 
@@ -639,6 +646,21 @@ def split_filter(measurements: pd.DataFrame, splits: list[str] | None) -> pd.Dat
     if splits is None:
         return measurements
     return measurements[measurements["split"].isin(splits)].reset_index(drop=True)
+
+
+def fit_measurements(measurements: pd.DataFrame, cfg: TrainConfig) -> tuple[pd.DataFrame, int]:
+    """The measurements the models fit and cross-validate: those of ``cfg.fit_splits``, less the ones
+    curation flags ``kind_suspect`` unless ``cfg.fit_kind_suspects``; and how many were withheld.
+
+    A kind suspect's value fits no site of its kind by the catalog's ranges but a site of the other kind:
+    as a label it either trains a site on the other kind's value (cytosine's N-H acid constant 12.2 filed as
+    a base lands on its ring N) or trains a class the catalog's range misses; the curated table keeps the
+    flag, so the user sees each one."""
+    fit = split_filter(measurements, cfg.fit_splits)
+    if cfg.fit_kind_suspects or "kind_suspect" not in fit:
+        return fit, 0
+    suspect = fit["kind_suspect"].fillna(False).astype(bool).to_numpy()
+    return fit[~suspect].reset_index(drop=True), int(suspect.sum())
 
 
 def heavy_atom_counts(mols: list) -> np.ndarray:

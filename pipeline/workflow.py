@@ -250,7 +250,10 @@ def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_
     clock = clock or StageClock(log)
     t0 = time.monotonic()
     out_dir = Path(out_dir)
-    fit_meas = T.split_filter(measurements, cfg.train.fit_splits)
+    fit_meas, withheld = T.fit_measurements(measurements, cfg.train)
+    if withheld:
+        log(f"{withheld} kind-suspect measurements withheld from fitting and cross-validation "
+            "(train.fit_kind_suspects: false; listed by kind_suspect in the measurements)")
     # LightGBM (with scikit-learn and SciPy, about a second) loads while this process waits on the
     # feature workers, instead of at the first fit
     threading.Thread(target=lightgbm_module, name="pkasite-import", daemon=True).start()
@@ -305,6 +308,7 @@ def train_step(cfg: RunConfig, measurements: pd.DataFrame, out_dir: Path, extra_
         card = _card(cfg, registry, fit_meas, len(prep.table.molecules),
                      main_rows.to_dict("records"), heldout, domain, coverage.to_dict("records"), code_version())
         card["assignment"] = {**prep.table.assignment_stats(), "moved_per_round": moved}
+        card["kind_suspects_withheld"] = withheld
         bundle = ModelBundle(final, prep.settings, prep.site_types, load_catalog().version, calibrator, domain,
                              train_bits, card, cv.residuals, cv.metrics, cv.predictions, curation,
                              molecule_calibrator=mol_calibrator, coverage=coverage,
