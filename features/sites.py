@@ -569,7 +569,7 @@ def _holds(catalog: Catalog, site: Site, value: float, margin: float) -> bool:
 
 
 def numbering_contradicted(mol: Chem.Mol, kind: str, rank: int, value: float, margin: float = 2.0,
-                           catalog: Catalog | None = None) -> bool:
+                           catalog: Catalog | None = None, sites: Sequence[Site] | None = None) -> bool:
     """Whether a value a source numbers as the molecule's ``rank``-th constant of ``kind`` (``rank > 1``)
     cannot be that constant by the catalog's ranges while it can be a stronger one.
 
@@ -578,9 +578,10 @@ def numbering_contradicted(mol: Chem.Mol, kind: str, rank: int, value: float, ma
     ``margin`` outside the range of the rank-th site and of every weaker one, and within ``margin`` of
     the range of a stronger one: glycolic acid's 3.67 numbered as its second acid constant can only be
     the carboxylic acid's (the alcohol's range is 9-17). Either the number or the value is wrong.
+    ``sites``: the molecule's :func:`find_sites`, when the caller has them.
     """
     catalog = catalog or load_catalog()
-    candidates = [s for s in find_sites(mol, catalog) if s.kind == kind]
+    candidates = [s for s in (find_sites(mol, catalog) if sites is None else sites) if s.kind == kind]
     if rank <= 1 or len(candidates) < 2:
         return False
     sign = 1.0 if kind == "acid" else -1.0

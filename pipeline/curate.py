@@ -315,13 +315,14 @@ def curate(raw: pd.DataFrame, cfg: CurationConfig, processes: int = 1) -> Curati
             kept.append(_curate_row(label, row, cfg, numbering_later, cache))
         except Reject as rej:
             rejects.append(_reject_row(row, rej.reason, rej.detail))
-    rows, later = _rank_constants(pd.DataFrame(kept), cfg)
+    sites_of = _SitesMemo()
+    rows, later = _rank_constants(pd.DataFrame(kept), cfg, sites_of)
     rejects.extend(later)
     if cfg.inhouse_overrides_open and len(rows):
         rows, superseded = _apply_inhouse_override(rows)
         rejects.extend(superseded)
     measurements, conflicts, merged = _aggregate(rows, cfg)
-    measurements["kind_suspect"] = _kind_suspects(measurements, cfg.numbering_range_margin)
+    measurements["kind_suspect"] = _kind_suspects(measurements, cfg.numbering_range_margin, sites_of)
     rejects.extend(conflicts)
     rejects_df = pd.DataFrame(rejects, columns=REJECT_COLUMNS)
     summary = summarize(raw, measurements, rejects_df, _constant_counts(merged))
@@ -370,16 +371,34 @@ def _curate_row(label, row: dict, cfg: CurationConfig, numbering_later: set, cac
             "numbering_rule_later": site_atom is None and label in numbering_later}
 
 
-def _rank_constants(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFrame, list[dict]]:
+class _SitesMemo:
+    """A curated SMILES's molecule and its :func:`~pkasite.features.sites.find_sites`, computed once per
+    structure for the rules that read the catalog (group names, numbering, kind check)."""
+
+    def __init__(self):
+        self._memo: dict[str, tuple] = {}
+
+    def __call__(self, smiles: str) -> tuple:
+        if smiles not in self._memo:
+            from pkasite.features.sites import find_sites
+            from pkasite.features.standardize import parse_smiles
+            mol = parse_smiles(smiles)
+            self._memo[smiles] = (mol, find_sites(mol))
+        return self._memo[smiles]
+
+
+def _rank_constants(rows: pd.DataFrame, cfg: CurationConfig,
+                    sites_of: _SitesMemo | None = None) -> tuple[pd.DataFrame, list[dict]]:
     """Set ``constant_rank`` on the kept rows (None where the row names its site); with
     ``first_constant_only`` reject the rows of rank 2 or more that name no site."""
     if rows.empty:
         return rows, []
+    sites_of = sites_of or _SitesMemo()
     ranked = constant_ranks(rows)
     ranked["constant_rank"] += unlisted_stronger_acids(rows)
     drawing = drawing_charges(rows, cfg.charged_drawing_ranks, cfg.charge_against_kind)
     if cfg.group_sites:
-        rows = _name_sites_from_groups(rows, drawing["against_kind"], cfg.numbering_range_margin)
+        rows = _name_sites_from_groups(rows, drawing["against_kind"], cfg.numbering_range_margin, sites_of)
     drawn = drawing["titrated"]
     raised = ranked["constant_rank"] < drawn + 1
     ranked["constant_rank"] = ranked["constant_rank"].where(~raised, drawn + 1)
@@ -387,7 +406,7 @@ def _rank_constants(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFra
     rows = rows.assign(constant_rank=ranked["constant_rank"].astype(object).where(~named, None),
                        ranked_by_drawing=raised & ~named,
                        drawn_charge=drawing["against_kind"].where(~named, 0))
-    contradicted = _numbering_conflicts(rows, cfg.numbering_range_margin)
+    contradicted = _numbering_conflicts(rows, cfg.numbering_range_margin, sites_of)
     rejects = [_reject_row({**r, "smiles": r["input_smiles"]}, "numbering_conflict", _conflict_detail(r))
                for r in rows[contradicted].to_dict("records")]
     group_conflict = rows.get("group_conflict", pd.Series(False, rows.index)).astype(bool) & ~contradicted
@@ -403,22 +422,21 @@ def _rank_constants(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFra
     return rows[~later], rejects
 
 
-def _name_sites_from_groups(rows: pd.DataFrame, against_kind: pd.Series, margin: float | None) -> pd.DataFrame:
+def _name_sites_from_groups(rows: pd.DataFrame, against_kind: pd.Series, margin: float | None,
+                            sites_of: _SitesMemo) -> pd.DataFrame:
     """Rows that name no site atom but whose source names the titrating group, when the name singles out
     one candidate site (:func:`~pkasite.features.sites.group_site`), get that site atom and
     ``site_from_group``; the source's word, not the value, picks the site.  Rows drawn against their kind
     keep their step out of the drawn charge instead (a named site would compare the neutral molecule's
     site value with it).  A row whose value only another candidate's catalog range can hold (widened by
     ``margin``; :func:`~pkasite.features.sites.named_site_contradicted`) is marked ``group_conflict``."""
-    from pkasite.features.sites import find_sites, group_site, named_site_contradicted
-    from pkasite.features.standardize import parse_smiles
+    from pkasite.features.sites import group_site, named_site_contradicted
 
     rows = rows.assign(site_from_group=False, group_conflict=False)
     todo = rows["site_atom"].isna() & (against_kind == 0) & (rows["site_group"].str.strip() != "")
     for label in rows.index[todo]:
         r = rows.loc[label]
-        mol = parse_smiles(r["smiles"])
-        sites = find_sites(mol)
+        mol, sites = sites_of(r["smiles"])
         atom = group_site(mol, r["kind"], r["site_group"], sites=sites)
         if atom is None:
             continue
@@ -431,11 +449,10 @@ def _name_sites_from_groups(rows: pd.DataFrame, against_kind: pd.Series, margin:
     return rows
 
 
-def _numbering_conflicts(rows: pd.DataFrame, margin: float | None) -> pd.Series:
+def _numbering_conflicts(rows: pd.DataFrame, margin: float | None, sites_of: _SitesMemo) -> pd.Series:
     """Rows ranked as a later constant whose value only a stronger site's catalog range can hold
     (:func:`~pkasite.features.sites.numbering_contradicted`); all False when ``margin`` is None."""
     from pkasite.features.sites import numbering_contradicted
-    from pkasite.features.standardize import parse_smiles
 
     out = pd.Series(False, index=rows.index)
     if margin is None:
@@ -443,8 +460,9 @@ def _numbering_conflicts(rows: pd.DataFrame, margin: float | None) -> pd.Series:
     rank = pd.to_numeric(rows["constant_rank"], errors="coerce").fillna(1)
     for label in rows.index[rank > 1]:
         r = rows.loc[label]
-        out[label] = numbering_contradicted(parse_smiles(r["smiles"]), r["kind"], int(rank[label]),
-                                            float(r["pka"]), margin)
+        mol, sites = sites_of(r["smiles"])
+        out[label] = numbering_contradicted(mol, r["kind"], int(rank[label]), float(r["pka"]), margin,
+                                            sites=sites)
     return out
 
 
@@ -583,21 +601,21 @@ def _aggregate(rows: pd.DataFrame, cfg: CurationConfig) -> tuple[pd.DataFrame, l
     return result, conflicts, merged
 
 
-def _kind_suspects(measurements: pd.DataFrame, margin: float | None) -> pd.Series:
+def _kind_suspects(measurements: pd.DataFrame, margin: float | None, sites_of: _SitesMemo) -> pd.Series:
     """Per measurement: its value fits no site of its kind by the catalog's ranges (widened by
     ``margin``) but a site of the other kind (:func:`~pkasite.features.sites.kind_contradicted`): a
     kind misfiled in the source, or a site type whose catalog range is too narrow.  Flagged for review,
     kept as they are (as replicate conflicts with ``conflict_action: flag``).  Records that name their
     site or are drawn against their kind are not checked: their site is settled otherwise."""
     from pkasite.features.sites import kind_contradicted
-    from pkasite.features.standardize import parse_smiles
 
     out = pd.Series(False, index=measurements.index, dtype=bool)
     if margin is None or not len(measurements):
         return out
     check = measurements["site_atom"].isna() & (measurements["drawn_charge"] == 0)
     for label, smiles, kind, value in measurements.loc[check, ["smiles", "kind", "pka"]].itertuples():
-        out[label] = kind_contradicted(parse_smiles(smiles), kind, float(value), margin)
+        mol, sites = sites_of(smiles)
+        out[label] = kind_contradicted(mol, kind, float(value), margin, sites=sites)
     return out
 
 
